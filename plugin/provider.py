@@ -1,0 +1,58 @@
+"""The Processing provider `channelhabitat`: lists every algorithm in plugin/algorithms/."""
+
+from __future__ import annotations
+
+import importlib
+import pkgutil
+from pathlib import Path
+
+from qgis.core import QgsProcessingProvider
+from qgis.PyQt.QtGui import QIcon
+
+from .resources import resource_path
+
+PROVIDER_ID = "channelhabitat"
+
+
+def provider_icon() -> QIcon:
+    return QIcon(str(resource_path("icons", "channel_habitat.svg")))
+
+
+def algorithm_classes() -> list:
+    """Every algorithm class: each module in algorithms/ (not starting with '_') defines one or
+    more subclasses of ChannelHabitatAlgorithm with an ALG_ID."""
+    from . import algorithms
+    from .algorithms.base import ChannelHabitatAlgorithm
+
+    found = []
+    for mod in sorted(pkgutil.iter_modules([str(Path(algorithms.__file__).parent)]), key=lambda m: m.name):
+        if mod.name.startswith("_") or mod.name == "base":
+            continue
+        module = importlib.import_module(f"{algorithms.__name__}.{mod.name}")
+        for obj in vars(module).values():
+            if (isinstance(obj, type) and issubclass(obj, ChannelHabitatAlgorithm)
+                    and obj is not ChannelHabitatAlgorithm and getattr(obj, "ALG_ID", "")
+                    and obj.__module__ == module.__name__):
+                found.append(obj)
+    return found
+
+
+class ChannelHabitatProvider(QgsProcessingProvider):
+    def id(self):
+        return PROVIDER_ID
+
+    def name(self):
+        return "Channel Habitat"
+
+    def longName(self):  # noqa: N802
+        return "Channel Habitat — habitat evidence from 2D hydraulic model results"
+
+    def icon(self):
+        return provider_icon()
+
+    def svgIconPath(self):  # noqa: N802
+        return str(resource_path("icons", "channel_habitat.svg"))
+
+    def loadAlgorithms(self):  # noqa: N802
+        for cls in algorithm_classes():
+            self.addAlgorithm(cls())

@@ -128,3 +128,109 @@ class ReachAxis:
         up = int(np.count_nonzero((s == 0) & (best_t <= 0.0)))
         down = int(np.count_nonzero((s == nseg - 1) & (best_t >= 1.0)))
         return Location(ch, off, dist, up, down)
+
+
+# --------------------------------------------------------------------------------------------
+# Reach: the axis plus its segmentation and zones (what every summary along the river uses)
+# --------------------------------------------------------------------------------------------
+
+DEFAULT_SEGMENT_LENGTH_M = 1000.0
+DEFAULT_ZONE_NAMES = ("upper", "middle", "lower")
+
+
+def segment_edges(start_m: float, end_m: float, length_m: float = DEFAULT_SEGMENT_LENGTH_M) -> np.ndarray:
+    """Segment boundaries every ``length_m`` from ``start_m``; the last segment may be shorter."""
+    if not length_m > 0:
+        raise ChannelHabitatError("the segment length must be positive", "SEGMENT_LENGTH")
+    n_full = int(np.floor((end_m - start_m) / length_m + 1e-9))
+    edges = start_m + length_m * np.arange(n_full + 1)
+    if end_m - edges[-1] > 1e-6 * length_m:
+        edges = np.append(edges, end_m)
+    return edges
+
+
+def parse_zone_breaks(text: str, start_m: float, end_m: float):
+    """'0 upper, 12000 middle, 25000 lower' -> (edges, names). Empty text: equal thirds named
+    upper/middle/lower. Chainages are where each zone starts; the first must be at or before the
+    reach start."""
+    text = (text or "").strip()
+    if not text:
+        edges = np.linspace(start_m, end_m, 4)
+        return edges, list(DEFAULT_ZONE_NAMES)
+    starts, names = [], []
+    for part in text.replace(";", ",").split(","):
+        part = part.strip()
+        if not part:
+            continue
+        bits = part.split(None, 1)
+        try:
+            ch = float(bits[0])
+        except ValueError:
+            raise ChannelHabitatError(
+                f"zone break '{part}' must start with a chainage in metres, e.g. '12000 middle'",
+                "ZONE_BREAKS") from None
+        name = bits[1].strip() if len(bits) > 1 else f"zone {len(names) + 1}"
+        starts.append(ch)
+        names.append(name)
+    if not starts:
+        raise ChannelHabitatError("no zone breaks found; write e.g. '0 upper, 12000 middle, 25000 lower'",
+                                  "ZONE_BREAKS")
+    if any(b <= a for a, b in zip(starts, starts[1:])):
+        raise ChannelHabitatError("zone breaks must increase along the reach", "ZONE_BREAKS")
+    if len(set(names)) != len(names):
+        raise ChannelHabitatError("zone names must differ", "ZONE_BREAKS")
+    if starts[-1] >= end_m:
+        raise ChannelHabitatError(f"zone '{names[-1]}' starts at {starts[-1]:g} m, at or beyond the "
+                                  f"reach end ({end_m:.0f} m)", "ZONE_BREAKS")
+    starts[0] = min(starts[0], start_m)
+    edges = np.array(starts[1:], dtype=float)
+    edges = np.concatenate([[start_m], edges[edges > start_m], [end_m]])
+    names = names[len(names) - (len(edges) - 1):]
+    return edges, names
+
+
+class Reach:
+    """An axis with segment and zone boundaries (chainages) and, optionally, their polygons."""
+
+    def __init__(self, axis: ReachAxis, seg_edges=None, zone_edges=None, zone_names=None,
+                 segment_polygons=None, zone_polygons=None):
+        self.axis = axis
+        self.segment_edges = np.asarray(seg_edges if seg_edges is not None else
+                                        segment_edges(axis.start_m, axis.end_m), dtype=float)
+        if zone_edges is None:
+            zone_edges, zone_names = parse_zone_breaks("", axis.start_m, axis.end_m)
+        self.zone_edges = np.asarray(zone_edges, dtype=float)
+        self.zone_names = list(zone_names)
+        self.segment_polygons = segment_polygons
+        self.zone_polygons = zone_polygons
+
+    @property
+    def n_segments(self) -> int:
+        return len(self.segment_edges) - 1
+
+    @property
+    def n_zones(self) -> int:
+        return len(self.zone_edges) - 1
+
+    @staticmethod
+    def _bin(edges, chainage):
+        c = np.asarray(chainage)
+        i = np.searchsorted(edges, c, side="right") - 1
+        i = np.where(c == edges[-1], len(edges) - 2, i)  # the downstream end belongs to the last
+        return np.where((c < edges[0]) | (c > edges[-1]) | ~np.isfinite(c), -1, i).astype(np.int32)
+
+    def segment_of(self, chainage) -> np.ndarray:
+        """Segment number (0-based) of each chainage; -1 outside the reach."""
+        return self._bin(self.segment_edges, chainage)
+
+    def zone_of(self, chainage) -> np.ndarray:
+        """Zone number (0-based) of each chainage; -1 outside the reach."""
+        return self._bin(self.zone_edges, chainage)
+
+
+def locate_field(reach: Reach, fld) -> Location:
+    """Chainage and offset of every element of a HydraulicField.
+
+    (To be cached per grid/mesh geometry: repeated runs on the same grid do not pay again.)
+    """
+    return reach.axis.locate(fld.x, fld.y)

@@ -10,6 +10,14 @@ from __future__ import annotations
 import os
 from dataclasses import dataclass, field
 
+# Parameter names reported in error messages (the single-run algorithms' names).
+DEFAULT_PARAMS = {
+    "depth": "DEPTH", "speed": "SPEED", "u": "VELOCITY_U", "v": "VELOCITY_V", "mesh": "MESH",
+    "depth_group": "MESH_DEPTH_GROUP", "velocity_group": "MESH_VELOCITY_GROUP",
+    "u_group": "MESH_U_GROUP", "v_group": "MESH_V_GROUP", "time_index": "MESH_TIME_INDEX",
+    "mesh_crs": "MESH_CRS",
+}
+
 
 @dataclass
 class RunSource:
@@ -27,10 +35,7 @@ class RunSource:
     time_index: int = -1
     mesh_crs_wkt: str | None = None
     label: str = ""
-    params: dict = field(default_factory=lambda: {
-        "depth": "DEPTH", "speed": "SPEED", "u": "VELOCITY_U", "v": "VELOCITY_V", "mesh": "MESH",
-        "depth_group": "MESH_DEPTH_GROUP", "velocity_group": "MESH_VELOCITY_GROUP",
-        "time_index": "MESH_TIME_INDEX"})
+    params: dict = field(default_factory=lambda: dict(DEFAULT_PARAMS))
 
     @property
     def is_mesh(self) -> bool:

@@ -1,0 +1,582 @@
+"""Habitat through time: a daily flow series, spells, and delivery options for a limited volume.
+
+This module is the pure-numpy part of ``habitatseries``:
+
+* :func:`read_flow_series` - a daily flow series CSV (``date, discharge, unit`` plus optional
+  further columns holding alternative series) -> :class:`FlowSeries`, refusing gaps, duplicate
+  dates, missing or negative flows and unknown units, with the first offending lines named.
+* :func:`find_spells` - spells of a daily condition. A *spell* is a maximal run of consecutive days
+  on which the condition holds. Days whose state is unknown (flow outside the discharge ladder)
+  break a spell and are never counted as meeting it; a spell that touches the start or end of the
+  record, or an unknown day, is *censored* on that side: its true length may be longer.
+* delivery patterns (:func:`parse_delivery_options`, :func:`added_flow`): ways of delivering an
+  environmental volume V (ML) on top of the base series, each scaled so that the added flow
+  summed over the days (ML/d x 1 d) is exactly V:
+
+  - ``pulse``: a trapezoid starting on a chosen date: ``ramp_up`` days rising linearly, ``duration``
+    days at the peak, ``ramp_down`` days falling linearly. Day k of a ramp of r days carries
+    k/(r+1) of the peak, so the added flow is P * w_i with fixed weights w_i; the peak is solved,
+    P = V / sum(w_i).
+  - ``peak``: the same trapezoid centred on the highest base flow inside a window (lifting a
+    natural peak); the peak is solved in the same way.
+  - ``recession``: from a start date the flow is held up at a level (default the base flow on
+    that day) that falls by at most ``fall`` per cent a day: target_k = level (1 - fall/100)^k.
+    The added flow is max(target_k - base_k, 0), day after day, until the volume is spent; the
+    last day takes only what is left (a partial day).
+  - ``constant``: the same added flow on every day of a window, V / n days.
+
+  Alternative series supplied as further columns are options too; their volume is the sum of
+  (alternative - base) and is reported, not forced.
+
+Discharge is in ML/d throughout (core/units.py); one day of 1 ML/d is 1 ML; 1 GL = 1000 ML.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import ChannelHabitatError
+from .units import M3S_PER_MLD, normalise_unit
+
+ML_PER_GL = 1000.0
+DAY = np.timedelta64(1, "D")
+
+# Default bloom-risk settings (see docs/algorithms/habitatseries.md):
+# minimum spell length 5 days after the persistent-stratification duration reported by
+# Mitrovic et al. 2003, Freshwater Biology 48:164-174; share 50 % of the zone's wetted area
+# (a majority of the zone in the stratification-prone class; common practice, no source).
+DEFAULT_BLOOM_CLASSES = "very slow"
+DEFAULT_BLOOM_SHARE_PCT = 50.0
+DEFAULT_BLOOM_MIN_DAYS = 5
+
+PATTERNS = ("pulse", "peak", "recession", "constant")
+
+_MAX_LISTED = 5
+
+
+# ------------------------------------------------------------------------------------------
+# Dates
+# ------------------------------------------------------------------------------------------
+_DATE_RE = re.compile(r"^(\d{4}-\d{2}-\d{2})(?:[T ](\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?))?$")
+
+
+def parse_date(text, what: str = "date", parameter: str | None = None) -> np.datetime64:
+    """An ISO date 'YYYY-MM-DD' -> numpy datetime64[D]; anything else is refused."""
+    s = str(text).strip()
+    m = _DATE_RE.match(s)
+    if m is None or m.group(2) is not None:
+        raise ChannelHabitatError(f"{what} '{s}' is not an ISO date (YYYY-MM-DD)", parameter)
+    try:
+        return np.datetime64(m.group(1), "D")
+    except ValueError:
+        raise ChannelHabitatError(f"{what} '{s}' is not a valid calendar date", parameter) from None
+
+
+def iso(d) -> str:
+    return str(np.datetime64(d, "D"))
+
+
+# ------------------------------------------------------------------------------------------
+# The flow series
+# ------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class FlowSeries:
+    """A daily flow series without gaps: ``dates`` consecutive days (datetime64[D]), ``q_mld``
+    the base series, ``alternatives`` further series (name -> ML/d) on the same days."""
+
+    dates: np.ndarray
+    q_mld: np.ndarray
+    alternatives: dict = field(default_factory=dict)
+    units: tuple = ()  # the units found in the file, e.g. ('ML/d',)
+
+    @property
+    def n_days(self) -> int:
+        return len(self.dates)
+
+    @property
+    def start(self) -> np.datetime64:
+        return self.dates[0]
+
+    @property
+    def end(self) -> np.datetime64:
+        return self.dates[-1]
+
+    def index_of(self, day: np.datetime64, what: str, parameter: str | None = None) -> int:
+        i = int((np.datetime64(day, "D") - self.dates[0]) / DAY)
+        if i < 0 or i >= self.n_days:
+            raise ChannelHabitatError(
+                f"{what} {iso(day)} is outside the flow series ({iso(self.start)} to {iso(self.end)})",
+                parameter)
+        return i
+
+
+def _listing(items) -> str:
+    items = list(items)
+    text = "; ".join(items[:_MAX_LISTED])
+    if len(items) > _MAX_LISTED:
+        text += f"; and {len(items) - _MAX_LISTED} more"
+    return text
+
+
+def _number(s: str):
+    try:
+        v = float(str(s).strip())
+    except (TypeError, ValueError):
+        return None
+    return v
+
+
+def read_flow_series(text: str, unit: str | None = None, alternatives=None,
+                     parameter: str = "FLOWS") -> FlowSeries:
+    """Parse a daily flow CSV (see module docstring).
+
+    Columns (header required, case-insensitive, any order): ``date`` (ISO YYYY-MM-DD),
+    ``discharge`` and ``unit`` (ML/d or m3/s, per row). Instead of discharge+unit a column named
+    ``q_mld`` or ``q_m3s`` may be used; without a unit column ``unit`` (the argument) applies.
+    Every further column is an alternative series in the same unit as its row, unless
+    ``alternatives`` (a list of column names) says which to use; listed columns must exist.
+    Rows may come in any order; the series must then cover every day once, without gaps.
+    """
+    rows = list(csv.reader(io.StringIO(text.lstrip("\ufeff"))))
+    # skip fully blank lines but remember line numbers (1-based, header = 1)
+    numbered = [(i + 1, r) for i, r in enumerate(rows) if any(c.strip() for c in r)]
+    if not numbered:
+        raise ChannelHabitatError("the flow series file is empty", parameter)
+    header_line, header = numbered[0]
+    return flow_series_from_rows(header, numbered[1:], unit=unit, alternatives=alternatives,
+                                 parameter=parameter)
+
+
+def flow_series_from_rows(header, numbered_rows, unit: str | None = None, alternatives=None,
+                          parameter: str = "FLOWS") -> FlowSeries:
+    """The parser behind :func:`read_flow_series`; ``numbered_rows`` is [(line, [cells...])]
+    (a QGIS table layer gives feature ids as 'lines')."""
+    names = [str(h).strip() for h in header]
+    low = [h.lower() for h in names]
+    if len(set(low)) != len(low):
+        dup = sorted({h for h in low if low.count(h) > 1})
+        raise ChannelHabitatError(f"the flow series has repeated column(s): {', '.join(dup)}", parameter)
+    if "date" not in low:
+        raise ChannelHabitatError(
+            "the flow series needs a header with columns date, discharge, unit (found: "
+            f"{', '.join(names) or 'none'})", parameter)
+    i_date = low.index("date")
+    fixed_unit = None
+    if "discharge" in low:
+        i_q = low.index("discharge")
+    elif "q_mld" in low:
+        i_q, fixed_unit = low.index("q_mld"), "ML/d"
+    elif "q_m3s" in low:
+        i_q, fixed_unit = low.index("q_m3s"), "m3/s"
+    else:
+        raise ChannelHabitatError(
+            "the flow series has no discharge column: name it 'discharge' (with a 'unit' column) "
+            "or 'q_mld' / 'q_m3s'", parameter)
+    i_unit = low.index("unit") if "unit" in low and fixed_unit is None else None
+    if fixed_unit is None and i_unit is None:
+        if not unit:
+            raise ChannelHabitatError(
+                "the flow series has no 'unit' column: add one (ML/d or m3/s on every row) or "
+                "choose the unit of the file", parameter)
+        fixed_unit = normalise_unit(unit, parameter)
+    used = {i_date, i_q} | ({i_unit} if i_unit is not None else set())
+    extra = [j for j in range(len(names)) if j not in used]
+    if alternatives:
+        wanted = [str(a).strip() for a in alternatives if str(a).strip()]
+        idx = []
+        for a in wanted:
+            if a.lower() not in low:
+                raise ChannelHabitatError(
+                    f"alternative series column '{a}' is not in the flow series (columns: "
+                    f"{', '.join(names)})", parameter)
+            j = low.index(a.lower())
+            if j in used:
+                raise ChannelHabitatError(f"column '{a}' cannot be an alternative series", parameter)
+            idx.append(j)
+        extra = idx
+    for j in extra:
+        if not names[j]:
+            raise ChannelHabitatError(
+                f"column {j + 1} of the flow series has no name; name it (it would be an "
+                "alternative series) or remove it", parameter)
+
+    if not numbered_rows:
+        raise ChannelHabitatError("the flow series has a header but no data rows", parameter)
+    n = len(numbered_rows)
+    lines = np.array([ln for ln, _ in numbered_rows], dtype=np.int64)
+    dates = np.empty(n, dtype="datetime64[D]")
+    q = np.empty((1 + len(extra), n), dtype=np.float64)
+    to_mld = np.ones(n)
+    units_seen = []
+    times = set()
+    problems = []
+    cols = [i_q] + extra
+    for k, (ln, cells) in enumerate(numbered_rows):
+        cells = list(cells) + [""] * (len(names) - len(cells))
+        ds = str(cells[i_date]).strip()
+        m = _DATE_RE.match(ds)
+        if m is None:
+            raise ChannelHabitatError(f"line {ln}: date '{ds}' is not an ISO date (YYYY-MM-DD)", parameter)
+        try:
+            dates[k] = np.datetime64(m.group(1), "D")
+        except ValueError:
+            raise ChannelHabitatError(f"line {ln}: date '{ds}' is not a valid calendar date", parameter) from None
+        times.add(m.group(2) or "")
+        u = fixed_unit if i_unit is None else normalise_unit(cells[i_unit], parameter) \
+            if str(cells[i_unit]).strip() else None
+        if u is None:
+            raise ChannelHabitatError(f"line {ln} ({ds}): the unit is empty; give ML/d or m3/s", parameter)
+        if u not in units_seen:
+            units_seen.append(u)
+        to_mld[k] = 1.0 if u == "ML/d" else 1.0 / M3S_PER_MLD
+        for c, j in enumerate(cols):
+            raw = str(cells[j]).strip() if cells[j] is not None else ""
+            v = _number(raw) if raw else None
+            if v is None or not math.isfinite(v):
+                what = "is empty" if not raw else f"is '{raw}', not a number"
+                problems.append((ln, f"line {ln} ({ds}): {names[j]} {what}"))
+                v = np.nan
+            elif v < 0:
+                problems.append((ln, f"line {ln} ({ds}): {names[j]} {raw} is negative"))
+            q[c, k] = v
+    if problems:
+        raise ChannelHabitatError(
+            "the flow series has missing, non-numeric or negative flows - every day needs a "
+            "discharge >= 0 (gaps are never filled): " + _listing(p for _, p in problems), parameter)
+    if len(times) > 1:
+        raise ChannelHabitatError(
+            "the flow series mixes times of day (" + ", ".join(sorted(t or "none" for t in times)) +
+            "); give one value per day (date only, or the same time on every row)", parameter)
+    q = q * to_mld[None, :]
+
+    order = np.argsort(dates, kind="stable")
+    dates, lines, q = dates[order], lines[order], q[:, order]
+    step = np.diff(dates) / DAY
+    dup = np.nonzero(step == 0)[0]
+    if dup.size:
+        msgs = [f"{iso(dates[i])} (lines {lines[i]} and {lines[i + 1]})" for i in dup]
+        raise ChannelHabitatError(
+            "the flow series has duplicate dates: " + _listing(msgs) +
+            "; keep one value per day", parameter)
+    gaps = np.nonzero(step > 1)[0]
+    if gaps.size:
+        msgs = [f"nothing between {iso(dates[i])} and {iso(dates[i + 1])} ({int(step[i]) - 1} day"
+                f"{'s' if step[i] > 2 else ''} missing)" for i in gaps]
+        raise ChannelHabitatError(
+            "the flow series has gaps: " + _listing(msgs) +
+            "; give every day a value (habitatseries never fills gaps)", parameter)
+    alts = {names[j]: q[1 + c] for c, j in enumerate(extra)}
+    return FlowSeries(dates, q[0], alts, tuple(units_seen))
+
+
+# ------------------------------------------------------------------------------------------
+# Spells
+# ------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Spells:
+    """Spells as parallel arrays (indices into the series, ``end`` inclusive)."""
+
+    start: np.ndarray
+    end: np.ndarray
+    censored_start: np.ndarray
+    censored_end: np.ndarray
+
+    @property
+    def length(self) -> np.ndarray:
+        return self.end - self.start + 1
+
+    def __len__(self) -> int:
+        return len(self.start)
+
+    def select(self, mask) -> Spells:
+        mask = np.asarray(mask, dtype=bool)
+        return Spells(self.start[mask], self.end[mask], self.censored_start[mask], self.censored_end[mask])
+
+
+def find_spells(condition, known=None) -> Spells:
+    """Maximal runs of consecutive days where ``condition`` holds (and the state is ``known``).
+
+    Censored at the start when the spell begins on the first day or right after an unknown day;
+    censored at the end when it ends on the last day or right before an unknown day.
+    """
+    cond = np.asarray(condition, dtype=bool)
+    n = cond.size
+    known = np.ones(n, dtype=bool) if known is None else np.asarray(known, dtype=bool)
+    if known.shape != cond.shape:
+        raise ValueError("condition and known differ in length")
+    c = cond & known
+    edges = np.diff(np.concatenate([[0], c.astype(np.int8), [0]]))
+    start = np.nonzero(edges == 1)[0]
+    end = np.nonzero(edges == -1)[0] - 1
+    before_unknown = np.concatenate([[True], ~known])  # index i -> day i-1 unknown (or no day)
+    after_unknown = np.concatenate([~known, [True]])  # index i+1 -> day i+1 unknown (or none)
+    cs = before_unknown[start]
+    ce = after_unknown[end + 1]
+    return Spells(start.astype(np.int64), end.astype(np.int64), cs, ce)
+
+
+# ------------------------------------------------------------------------------------------
+# Delivery options
+# ------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class DeliveryOption:
+    name: str
+    pattern: str  # one of PATTERNS, or 'series' (an alternative column), or 'base'
+    params: dict = field(default_factory=dict)
+    text: str = ""  # the statement as written
+
+    def describe(self) -> str:
+        return self.text or self.pattern
+
+
+_KEYS = {
+    "pulse": {"start": "date", "duration": "days1", "ramp_up": "days0", "ramp_down": "days0", "ramp": "days0"},
+    "peak": {"from": "date", "to": "date", "duration": "days1", "ramp_up": "days0", "ramp_down": "days0",
+             "ramp": "days0"},
+    "recession": {"start": "date", "fall": "percent", "level": "flow"},
+    "constant": {"start": "date", "end": "date", "days": "days1"},
+}
+_REQUIRED = {"pulse": ("start", "duration"), "peak": ("from", "to", "duration"),
+             "recession": ("start",), "constant": ("start",)}
+
+_FLOW_RE = re.compile(r"^([0-9.eE+-]+)\s*(ml/d|mld|m3/s|m3s)?$", re.IGNORECASE)
+
+
+def _parse_value(kind: str, key: str, raw: str, where: str, parameter: str):
+    if kind == "date":
+        return parse_date(raw, f"{where}: {key}", parameter)
+    if kind in ("days0", "days1"):
+        v = _number(raw)
+        if v is None or not float(v).is_integer() or v < (1 if kind == "days1" else 0):
+            least = 1 if kind == "days1" else 0
+            raise ChannelHabitatError(f"{where}: {key}={raw} must be a whole number of days >= {least}", parameter)
+        return int(v)
+    if kind == "percent":
+        v = _number(raw.rstrip("%"))
+        if v is None or not (0.0 <= v < 100.0):
+            raise ChannelHabitatError(f"{where}: {key}={raw} must be a percentage per day in [0, 100)", parameter)
+        return float(v)
+    if kind == "flow":
+        m = _FLOW_RE.match(raw.strip())
+        v = _number(m.group(1)) if m else None
+        if v is None or not math.isfinite(v) or v <= 0:
+            raise ChannelHabitatError(f"{where}: {key}={raw} must be a discharge > 0 (ML/d, or add m3/s)",
+                                      parameter)
+        u = normalise_unit(m.group(2), parameter) if m.group(2) else "ML/d"
+        return v if u == "ML/d" else v / M3S_PER_MLD
+    raise AssertionError(kind)
+
+
+def parse_delivery_options(text: str, parameter: str = "DELIVERY") -> list:
+    """Options, one per line (or separated by ';'): ``<name>: <pattern> key=value ...``.
+
+    pulse      start=DATE duration=DAYS [ramp_up=DAYS] [ramp_down=DAYS] [ramp=DAYS (both)]
+    peak       from=DATE to=DATE duration=DAYS [ramp_up=DAYS] [ramp_down=DAYS] [ramp=DAYS]
+    recession  start=DATE [fall=PERCENT per day, default 0 = hold the level] [level=FLOW]
+    constant   start=DATE (end=DATE | days=DAYS)
+    """
+    options = []
+    seen = set()
+    for raw_line in re.split(r"[;\n]", text or ""):
+        line = raw_line.strip()
+        if not line or line.startswith("#"):
+            continue
+        if ":" not in line:
+            raise ChannelHabitatError(
+                f"delivery option '{line}' has no name: write '<name>: <pattern> key=value ...', e.g. "
+                "'spring pulse: pulse start=2023-10-01 duration=5 ramp_up=3 ramp_down=10'", parameter)
+        name, body = line.split(":", 1)
+        name = name.strip()
+        if not name:
+            raise ChannelHabitatError(f"delivery option '{line}' has an empty name", parameter)
+        if name.lower() in seen or name.lower() == "base":
+            raise ChannelHabitatError(
+                f"delivery option name '{name}' is used twice (or is 'base', which names the series "
+                "without delivery)", parameter)
+        seen.add(name.lower())
+        tokens = body.split()
+        if not tokens:
+            raise ChannelHabitatError(f"delivery option '{name}' has no pattern ({', '.join(PATTERNS)})", parameter)
+        pattern = tokens[0].lower()
+        if pattern not in _KEYS:
+            raise ChannelHabitatError(
+                f"delivery option '{name}': unknown pattern '{tokens[0]}' (use {', '.join(PATTERNS)})", parameter)
+        where = f"delivery option '{name}'"
+        params = {}
+        for tok in tokens[1:]:
+            if "=" not in tok:
+                raise ChannelHabitatError(f"{where}: '{tok}' is not key=value", parameter)
+            key, val = tok.split("=", 1)
+            key = key.strip().lower()
+            if key not in _KEYS[pattern]:
+                raise ChannelHabitatError(
+                    f"{where}: '{key}' is not a setting of a {pattern} (settings: "
+                    f"{', '.join(_KEYS[pattern])})", parameter)
+            if key in params:
+                raise ChannelHabitatError(f"{where}: '{key}' is given twice", parameter)
+            params[key] = _parse_value(_KEYS[pattern][key], key, val, where, parameter)
+        if "ramp" in params:
+            for k in ("ramp_up", "ramp_down"):
+                if k in params:
+                    raise ChannelHabitatError(f"{where}: give ramp or ramp_up/ramp_down, not both", parameter)
+                params[k] = params["ramp"]
+            del params["ramp"]
+        for k in _REQUIRED[pattern]:
+            if k not in params:
+                raise ChannelHabitatError(f"{where}: a {pattern} needs {k}=", parameter)
+        if pattern == "constant" and ("end" in params) == ("days" in params):
+            raise ChannelHabitatError(f"{where}: a constant addition needs end=DATE or days=N (one of them)",
+                                      parameter)
+        if pattern == "constant" and "end" in params and params["end"] < params["start"]:
+            raise ChannelHabitatError(f"{where}: end {iso(params['end'])} is before start {iso(params['start'])}",
+                                      parameter)
+        if pattern == "peak" and params["to"] < params["from"]:
+            raise ChannelHabitatError(f"{where}: to {iso(params['to'])} is before from {iso(params['from'])}",
+                                      parameter)
+        if pattern in ("pulse", "peak"):
+            params.setdefault("ramp_up", 0)
+            params.setdefault("ramp_down", 0)
+        if pattern == "recession":
+            params.setdefault("fall", 0.0)
+        options.append(DeliveryOption(name, pattern, params, f"{pattern} " + " ".join(tokens[1:])))
+    return options
+
+
+def trapezoid_weights(ramp_up: int, duration: int, ramp_down: int) -> np.ndarray:
+    """Relative added flow of a pulse: linear ramps (day k of r carries k/(r+1)), peak = 1."""
+    up = np.arange(1, ramp_up + 1) / (ramp_up + 1.0)
+    down = np.arange(ramp_down, 0, -1) / (ramp_down + 1.0)
+    return np.concatenate([up, np.ones(duration), down])
+
+
+@dataclass(frozen=True)
+class Delivery:
+    """The added flow of one option (ML/d per day of the series) and what was solved."""
+
+    option: DeliveryOption
+    added_mld: np.ndarray
+    summary: str
+
+    @property
+    def volume_ml(self) -> float:
+        return volume_ml(self.added_mld)
+
+
+def volume_ml(added_mld) -> float:
+    """Volume of an added flow series: sum of ML/d x 1 day (exactly rounded summation)."""
+    return math.fsum(float(v) for v in np.asarray(added_mld, dtype=np.float64))
+
+
+def _place(series: FlowSeries, start_i: int, weights: np.ndarray, where: str, parameter: str) -> int:
+    end_i = start_i + len(weights) - 1
+    if start_i < 0:
+        raise ChannelHabitatError(f"{where} would start before the flow series begins ({iso(series.start)})",
+                                  parameter)
+    if end_i >= series.n_days:
+        raise ChannelHabitatError(
+            f"{where} would run to {iso(series.start + end_i * DAY)}, after the flow series ends "
+            f"({iso(series.end)}); start earlier or shorten it", parameter)
+    return end_i
+
+
+def added_flow(option: DeliveryOption, series: FlowSeries, volume: float, parameter: str = "DELIVERY") -> Delivery:
+    """The added flow (ML/d) of a generated pattern that uses exactly ``volume`` ML."""
+    if not (volume > 0 and math.isfinite(volume)):
+        raise ChannelHabitatError(
+            "delivery options need an environmental water volume > 0 (ML or GL)", "ENV_VOLUME")
+    where = f"delivery option '{option.name}'"
+    p = option.params
+    n = series.n_days
+    added = np.zeros(n)
+    base = series.q_mld
+    if option.pattern in ("pulse", "peak"):
+        w = trapezoid_weights(p["ramp_up"], p["duration"], p["ramp_down"])
+        if option.pattern == "pulse":
+            start_i = series.index_of(p["start"], f"{where}: start", parameter)
+            centre = ""
+        else:
+            a = series.index_of(p["from"], f"{where}: from", parameter)
+            b = series.index_of(p["to"], f"{where}: to", parameter)
+            top = a + int(np.argmax(base[a:b + 1]))  # first day of the highest base flow
+            # the peak days are centred on that day (the extra day after it when even)
+            start_i = top - (p["duration"] - 1) // 2 - p["ramp_up"]
+            centre = f", centred on the base peak of {base[top]:.0f} ML/d on {iso(series.dates[top])}"
+        end_i = _place(series, start_i, w, where, parameter)
+        peak = volume / math.fsum(w)
+        added[start_i:end_i + 1] = peak * w
+        # put the rounding residue on the peak's first day so the sum is V to the last bit
+        added[start_i + p["ramp_up"]] += volume - volume_ml(added)
+        summary = (f"{option.pattern}: {p['ramp_up']} d ramp up, {p['duration']} d at +{peak:.1f} ML/d, "
+                   f"{p['ramp_down']} d ramp down, {iso(series.dates[start_i])} to "
+                   f"{iso(series.dates[end_i])}{centre}")
+    elif option.pattern == "constant":
+        start_i = series.index_of(p["start"], f"{where}: start", parameter)
+        days = p["days"] if "days" in p else int((p["end"] - p["start"]) / DAY) + 1
+        w = np.ones(days)
+        end_i = _place(series, start_i, w, where, parameter)
+        rate = volume / days
+        added[start_i:end_i + 1] = rate
+        added[start_i] += volume - volume_ml(added)
+        summary = (f"constant: +{rate:.1f} ML/d for {days} d, {iso(series.dates[start_i])} to "
+                   f"{iso(series.dates[end_i])}")
+    elif option.pattern == "recession":
+        start_i = series.index_of(p["start"], f"{where}: start", parameter)
+        level = p.get("level", float(base[start_i]))
+        k = np.arange(n - start_i, dtype=np.float64)
+        target = level * (1.0 - p["fall"] / 100.0) ** k
+        need = np.maximum(target - base[start_i:], 0.0)
+        cum = np.cumsum(need)
+        if cum.size == 0 or cum[-1] < volume:
+            got = float(cum[-1]) if cum.size else 0.0
+            raise ChannelHabitatError(
+                f"{where}: holding the flow up from {iso(series.dates[start_i])} (level {level:.0f} ML/d, "
+                f"falling {p['fall']:g} % a day) adds only {got:.0f} ML before the series ends on "
+                f"{iso(series.end)} (the base flow is at or above the held level), less than the "
+                f"{volume:.0f} ML to deliver; give a higher level=, a slower fall=, an earlier start= "
+                "or a smaller volume", parameter)
+        last = int(np.searchsorted(cum, volume, side="left"))  # first day the volume is reached
+        added[start_i:start_i + last + 1] = need[:last + 1]
+        used_before = volume_ml(added[start_i:start_i + last])
+        added[start_i + last] = volume - used_before  # the last day is partial
+        end_i = start_i + last
+        days_held = int(np.count_nonzero(added > 0))
+        summary = (f"recession: held from {level:.0f} ML/d falling {p['fall']:g} %/d, "
+                   f"{iso(series.dates[start_i])} to {iso(series.dates[end_i])} "
+                   f"({days_held} d with added flow; the last day partial, +{added[end_i]:.1f} ML/d)")
+    else:  # pragma: no cover - parse_delivery_options admits only PATTERNS
+        raise ChannelHabitatError(f"{where}: unknown pattern {option.pattern}", parameter)
+    used = volume_ml(added)
+    if abs(used - volume) > 1e-6 * max(1.0, volume):  # pragma: no cover - guards the arithmetic above
+        raise RuntimeError(f"volume accounting failed for {option.name}: {used} != {volume}")
+    return Delivery(option, added, summary)
+
+
+def alternative_delivery(name: str, alt_mld: np.ndarray, series: FlowSeries) -> Delivery:
+    """An alternative series supplied as a column: added flow = alternative - base."""
+    added = np.asarray(alt_mld, dtype=np.float64) - series.q_mld
+    below = int(np.count_nonzero(added < 0))
+    summary = "alternative series from the flow file"
+    if below:
+        summary += f" (below the base series on {below} day{'s' if below > 1 else ''})"
+    return Delivery(DeliveryOption(name, "series", {}, f"column '{name}'"), added, summary)
+
+
+def volume_to_ml(value: float, unit: str, parameter: str = "ENV_VOLUME") -> float:
+    """ML or GL -> ML (1 GL = 1000 ML)."""
+    u = str(unit).strip().lower()
+    if u in ("ml", "megalitre", "megalitres"):
+        f = 1.0
+    elif u in ("gl", "gigalitre", "gigalitres"):
+        f = ML_PER_GL
+    else:
+        raise ChannelHabitatError(f"unknown volume unit '{unit}': use ML or GL", parameter)
+    v = float(value)
+    if not math.isfinite(v) or v < 0:
+        raise ChannelHabitatError(f"the environmental water volume {value} must be >= 0", parameter)
+    return v * f

@@ -580,3 +580,301 @@ def volume_to_ml(value: float, unit: str, parameter: str = "ENV_VOLUME") -> floa
     if not math.isfinite(v) or v < 0:
         raise ChannelHabitatError(f"the environmental water volume {value} must be >= 0", parameter)
     return v * f
+
+
+# ------------------------------------------------------------------------------------------
+# Habitat through time: criteria, options, the three tables
+# ------------------------------------------------------------------------------------------
+_OPS = {
+    ">=": np.greater_equal,
+    ">": np.greater,
+    "<=": np.less_equal,
+    "<": np.less,
+}
+
+
+@dataclass(frozen=True)
+class Criterion:
+    """One daily yes/no question: the share of ``classes`` in ``unit`` compared with a threshold.
+
+    ``kind`` is 'target' (a stated target, spells of days meeting it) or 'bloom' (very slow water
+    above a share of the unit, spells of at least ``min_days`` count as bloom-risk spells).
+    ``unit`` is (scope, unit) as in the CURVES table, e.g. ('zone', 'lower'), ('reach', 'reach').
+    """
+
+    key: str
+    kind: str
+    unit: tuple
+    classes: tuple
+    op: str
+    threshold_pct: float
+    text: str
+    min_days: int = 1
+
+    def evaluate(self, pct: np.ndarray):
+        """(met, known) per day from the summed class share (NaN = unknown, outside the ladder)."""
+        known = np.isfinite(pct)
+        with np.errstate(invalid="ignore"):
+            met = _OPS[self.op](pct, self.threshold_pct) & known
+        return met, known
+
+
+def unit_label(unit: tuple) -> str:
+    scope, name = unit
+    return "reach" if scope == "reach" else (f"segment {name}" if scope == "segment" else str(name))
+
+
+def field_fragment(text: str) -> str:
+    """A name as a field-name fragment: 'very slow' -> 'very_slow', 'segment 3' -> 'segment_3'."""
+    k = re.sub(r"[^0-9a-zA-Z]+", "_", str(text).strip().lower()).strip("_")
+    return k or "x"
+
+
+def bloom_criteria(units, classes, share_pct: float, min_days: int) -> list:
+    """One bloom-risk criterion per unit: share of ``classes`` strictly above ``share_pct``."""
+    if not (0.0 <= share_pct < 100.0):
+        raise ChannelHabitatError(f"the bloom-risk share {share_pct:g} % must lie in [0, 100)", "BLOOM_SHARE")
+    if int(min_days) < 1:
+        raise ChannelHabitatError("the minimum bloom-risk spell must be at least 1 day", "BLOOM_MIN_DAYS")
+    out = []
+    cls = " + ".join(classes)
+    for u in units:
+        label = unit_label(u)
+        out.append(Criterion(f"bloom_{field_fragment(label)}", "bloom", tuple(u), tuple(classes), ">",
+                             float(share_pct), f"{label}: {cls} > {share_pct:g}% for >= {int(min_days)} days",
+                             int(min_days)))
+    return out
+
+
+@dataclass
+class OptionResult:
+    """Everything computed for one option (the base series is the option named 'base')."""
+
+    name: str
+    pattern: str
+    summary: str
+    q_mld: np.ndarray
+    added_mld: np.ndarray
+    volume_ml: float
+    in_ladder: np.ndarray
+    pct: dict  # (unit, class) -> percent per day (NaN outside the ladder)
+    met: dict  # criterion key -> bool per day
+    known: dict  # criterion key -> bool per day
+    share: dict  # criterion key -> summed class share per day
+    spells: dict  # criterion key -> Spells
+    wua: dict = field(default_factory=dict)  # wua field name -> m2 per day
+
+    def qualifying(self, crit: Criterion) -> Spells:
+        sp = self.spells[crit.key]
+        return sp.select(sp.length >= crit.min_days)
+
+
+@dataclass
+class SeriesResult:
+    series: FlowSeries
+    regime: str
+    ladder_mld: np.ndarray
+    units: list  # [(scope, unit)] reported in DAILY
+    classes: list
+    criteria: list  # [Criterion]: targets first, then bloom
+    options: list  # [OptionResult], base first
+    volume_given_ml: float | None
+    notes: list = field(default_factory=list)
+    daily: dict = field(default_factory=dict)
+    spells: dict = field(default_factory=dict)
+    table: dict = field(default_factory=dict)  # OPTIONS
+
+    @property
+    def targets(self) -> list:
+        return [c for c in self.criteria if c.kind == "target"]
+
+    @property
+    def blooms(self) -> list:
+        return [c for c in self.criteria if c.kind == "bloom"]
+
+
+def analyse_series(series: FlowSeries, curves, units, criteria, deliveries, volume_given_ml=None,
+                   wua=None, progress=None) -> SeriesResult:
+    """Evaluate the base series and every delivery against the curves.
+
+    ``curves`` answers ``curves.percent(unit, classes, q_mld) -> array`` (the summed share of
+    ``classes`` in ``unit`` at each discharge, NaN outside the ladder, interpolated as flowhabitat
+    does), and has ``regime``, ``ladder_mld`` and ``classes``. ``wua`` (optional) answers
+    ``wua.names`` and ``wua.value(name, q_mld)`` in m2 (NaN outside its ladder).
+    ``deliveries`` are :class:`Delivery` objects (generated patterns and alternative columns).
+    """
+    from .errors import as_progress
+
+    progress = as_progress(progress)
+    base_in = _in_ladder(curves, series.q_mld)
+    if not np.any(base_in):
+        lo, hi = float(np.min(curves.ladder_mld)), float(np.max(curves.ladder_mld))
+        raise ChannelHabitatError(
+            f"the flow series ({float(np.min(series.q_mld)):.0f} to {float(np.max(series.q_mld)):.0f} ML/d) lies "
+            f"entirely outside the discharge ladder of regime '{curves.regime}' ({lo:.0f} to {hi:.0f} ML/d): "
+            "no day can be evaluated (habitatseries never extrapolates). Check the unit of the series, or add "
+            "runs covering these discharges to the scenario table behind the curves", "FLOWS")
+    plan = [("base", "base", "the flow series as given", np.zeros(series.n_days))]
+    for d in deliveries:
+        plan.append((d.option.name, d.option.pattern, d.summary, d.added_mld))
+    results = []
+    for k, (name, pattern, summary, added) in enumerate(plan):
+        progress(k / len(plan), f"evaluating option '{name}'")
+        q = series.q_mld + added
+        if np.any(q < 0):
+            raise ChannelHabitatError(f"option '{name}' gives negative flows", "FLOWS")
+        inl = _in_ladder(curves, q)
+        pct = {}
+        for u in units:
+            for c in curves.classes:
+                pct[(tuple(u), c)] = np.asarray(curves.percent(tuple(u), (c,), q), dtype=np.float64)
+        met, known, share, spells = {}, {}, {}, {}
+        for crit in criteria:
+            s = np.asarray(curves.percent(crit.unit, crit.classes, q), dtype=np.float64)
+            m, kn = crit.evaluate(s)
+            share[crit.key], met[crit.key], known[crit.key] = s, m, kn
+            spells[crit.key] = find_spells(m, kn)
+        wv = {}
+        if wua is not None:
+            for wname in wua.names:
+                wv[wname] = np.asarray(wua.value(wname, q), dtype=np.float64)
+        results.append(OptionResult(name, pattern, summary, q, np.asarray(added, dtype=np.float64),
+                                    volume_ml(added), inl, pct, met, known, share, spells, wv))
+    progress(1.0, "tables")
+    res = SeriesResult(series, curves.regime, np.asarray(curves.ladder_mld, dtype=np.float64), list(units),
+                       list(curves.classes), list(criteria), results, volume_given_ml)
+    _notes(res)
+    res.daily = daily_table(res)
+    res.spells = spells_table(res)
+    res.table = options_table(res)
+    return res
+
+
+def _in_ladder(curves, q):
+    lo, hi = float(np.min(curves.ladder_mld)), float(np.max(curves.ladder_mld))
+    q = np.asarray(q, dtype=np.float64)
+    return (q >= lo) & (q <= hi)
+
+
+def _notes(res: SeriesResult) -> None:
+    lo, hi = float(res.ladder_mld.min()), float(res.ladder_mld.max())
+    for o in res.options:
+        out = int(np.count_nonzero(~o.in_ladder))
+        if out:
+            below = int(np.count_nonzero(o.q_mld < lo))
+            res.notes.append(
+                f"option '{o.name}': {out} of {res.series.n_days} days lie outside the discharge ladder "
+                f"({lo:.0f} to {hi:.0f} ML/d; {below} below, {out - below} above); their class shares are "
+                "left empty and they count as neither meeting nor failing any target")
+        given = res.volume_given_ml
+        if o.pattern == "series" and given is not None and round(o.volume_ml) != round(given):
+            res.notes.append(
+                f"alternative series '{o.name}' adds {o.volume_ml:.0f} ML, not the {res.volume_given_ml:.0f} ML "
+                "given as the environmental water volume")
+        if o.pattern == "series" and np.any(o.added_mld < 0):
+            res.notes.append(f"alternative series '{o.name}' is below the base series on "
+                             f"{int(np.count_nonzero(o.added_mld < 0))} days; its volume is the net sum")
+
+
+def daily_table(res: SeriesResult) -> dict:
+    """DAILY: one row per option and day (long form), ordered columns."""
+    n = res.series.n_days
+    cols = {}
+    cols["option"] = [o.name for o in res.options for _ in range(n)]
+    cols["date"] = [iso(d) for _ in res.options for d in res.series.dates]
+    q = np.concatenate([o.q_mld for o in res.options])
+    cols["q_mld"] = q
+    cols["q_m3s"] = q * M3S_PER_MLD
+    cols["added_mld"] = np.concatenate([o.added_mld for o in res.options])
+    cols["in_ladder"] = np.concatenate([o.in_ladder for o in res.options])
+    for u in res.units:
+        for c in res.classes:
+            name = f"pct_{field_fragment(unit_label(u))}_{field_fragment(c)}"
+            cols[name] = np.concatenate([o.pct[(tuple(u), c)] for o in res.options])
+    for crit in res.criteria:
+        cols[f"{crit.key}_pct"] = np.concatenate([o.share[crit.key] for o in res.options])
+        cols[f"{crit.key}_met"] = np.concatenate([o.met[crit.key] for o in res.options])
+    if res.options and res.options[0].wua:
+        for wname in res.options[0].wua:
+            cols[wname] = np.concatenate([o.wua[wname] for o in res.options])
+    return cols
+
+
+def spells_table(res: SeriesResult) -> dict:
+    """SPELLS: every target spell and every bloom-risk spell (plus censored short ones)."""
+    rows = {k: [] for k in ("option", "criterion", "kind", "unit", "condition", "start", "end", "length_days",
+                            "censored_start", "censored_end", "qualifies", "mean_pct", "max_pct", "min_pct")}
+    dates = res.series.dates
+    for o in res.options:
+        for crit in res.criteria:
+            sp = o.spells[crit.key]
+            keep = (sp.length >= crit.min_days) | sp.censored_start | sp.censored_end
+            share = o.share[crit.key]
+            for a, b, cs, ce in zip(sp.start[keep], sp.end[keep], sp.censored_start[keep], sp.censored_end[keep]):
+                seg = share[a:b + 1]
+                rows["option"].append(o.name)
+                rows["criterion"].append(crit.key)
+                rows["kind"].append(crit.kind)
+                rows["unit"].append(unit_label(crit.unit))
+                rows["condition"].append(crit.text)
+                rows["start"].append(iso(dates[a]))
+                rows["end"].append(iso(dates[b]))
+                rows["length_days"].append(int(b - a + 1))
+                rows["censored_start"].append(bool(cs))
+                rows["censored_end"].append(bool(ce))
+                rows["qualifies"].append(bool(b - a + 1 >= crit.min_days))
+                rows["mean_pct"].append(float(np.mean(seg)))
+                rows["max_pct"].append(float(np.max(seg)))
+                rows["min_pct"].append(float(np.min(seg)))
+    out = {}
+    for k, v in rows.items():
+        if k in ("length_days",):
+            out[k] = np.asarray(v, dtype=np.int64)
+        elif k in ("censored_start", "censored_end", "qualifies"):
+            out[k] = np.asarray(v, dtype=bool)
+        elif k.endswith("_pct"):
+            out[k] = np.asarray(v, dtype=np.float64)
+        else:
+            out[k] = v
+    return out
+
+
+def options_table(res: SeriesResult) -> dict:
+    """OPTIONS: one row per option (base first) with volume, days met, spells, bloom risk."""
+    base = res.options[0]
+    cols = {
+        "option": [o.name for o in res.options],
+        "pattern": [o.pattern for o in res.options],
+        "delivery": [o.summary for o in res.options],
+        "volume_ml": np.array([o.volume_ml for o in res.options]),
+        "volume_given_ml": np.array([np.nan if (o.pattern == "base" or res.volume_given_ml is None)
+                                     else res.volume_given_ml for o in res.options]),
+        "added_peak_mld": np.array([float(np.max(o.added_mld)) if o.added_mld.size else 0.0 for o in res.options]),
+    }
+    first, last = [], []
+    for o in res.options:
+        nz = np.nonzero(o.added_mld != 0)[0]
+        first.append(iso(res.series.dates[nz[0]]) if nz.size else "")
+        last.append(iso(res.series.dates[nz[-1]]) if nz.size else "")
+    cols["delivery_start"] = first
+    cols["delivery_end"] = last
+    cols["days"] = np.full(len(res.options), res.series.n_days, dtype=np.int64)
+    cols["outside_ladder_days"] = np.array([int(np.count_nonzero(~o.in_ladder)) for o in res.options], dtype=np.int64)
+    for crit in res.targets:
+        met = np.array([int(np.count_nonzero(o.met[crit.key])) for o in res.options], dtype=np.int64)
+        cols[f"{crit.key}_met_days"] = met
+        cols[f"{crit.key}_gain_days"] = met - int(np.count_nonzero(base.met[crit.key]))
+        cols[f"{crit.key}_spells"] = np.array([len(o.spells[crit.key]) for o in res.options], dtype=np.int64)
+        cols[f"{crit.key}_longest_days"] = np.array(
+            [int(o.spells[crit.key].length.max()) if len(o.spells[crit.key]) else 0 for o in res.options],
+            dtype=np.int64)
+    for crit in res.blooms:
+        q = [o.qualifying(crit) for o in res.options]
+        cols[f"{crit.key}_spells"] = np.array([len(s) for s in q], dtype=np.int64)
+        cols[f"{crit.key}_days"] = np.array([int(s.length.sum()) for s in q], dtype=np.int64)
+        cols[f"{crit.key}_longest_days"] = np.array([int(s.length.max()) if len(s) else 0 for s in q],
+                                                   dtype=np.int64)
+    for wname in (res.options[0].wua if res.options else {}):
+        cols[f"mean_{wname}"] = np.array([float(np.nanmean(o.wua[wname])) if np.any(np.isfinite(o.wua[wname]))
+                                          else np.nan for o in res.options])
+    return cols

@@ -1,0 +1,159 @@
+"""core/series.py analysis bookkeeping: days met, spells, bloom risk, the three tables.
+
+The curves here are an analytic stand-in (shares linear in log discharge), so every expected
+number is computed independently from the same formula by a plain loop over the days.
+"""
+
+import math
+
+import numpy as np
+import pytest
+
+from plugin.core.errors import ChannelHabitatError
+from plugin.core.series import (
+    Criterion,
+    FlowSeries,
+    added_flow,
+    analyse_series,
+    bloom_criteria,
+    parse_delivery_options,
+)
+
+LO, HI = 1000.0, 40000.0
+
+
+class AnalyticCurves:
+    """very slow = 80 (1 - s) %, fast = 80 s %, slow = 20 % with s = log(q/LO)/log(HI/LO);
+    NaN outside [LO, HI]. The same in every unit except 'upper', where shares are halved/doubled."""
+
+    regime = "weir"
+    ladder_mld = np.geomspace(LO, HI, 6)
+    classes = ["very slow", "slow", "fast"]
+
+    @staticmethod
+    def share(unit, cls, q):
+        q = np.asarray(q, dtype=float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = np.log(q / LO) / math.log(HI / LO)
+        v = {"very slow": 80 * (1 - s), "slow": np.full_like(s, 20.0), "fast": 80 * s}[cls]
+        v = np.where((q >= LO) & (q <= HI), v, np.nan)
+        return v
+
+    def percent(self, unit, classes, q):
+        return sum(self.share(unit, c, q) for c in classes)
+
+
+def scalar_share(cls, q):
+    """Plain-Python value of the analytic curve for one day (independent of numpy broadcasting)."""
+    if not (LO <= q <= HI):
+        return None
+    s = math.log(q / LO) / math.log(HI / LO)
+    return {"very slow": 80 * (1 - s), "slow": 20.0, "fast": 80 * s}[cls]
+
+
+def _series(q):
+    q = np.asarray(q, dtype=float)
+    return FlowSeries(np.datetime64("2023-07-01") + np.arange(len(q)), q, {}, ("ML/d",))
+
+
+UNITS = [("reach", "reach"), ("zone", "lower")]
+
+
+def _target(op=">=", thr=40.0, classes=("fast",), unit=("zone", "lower"), key="t1"):
+    return Criterion(key, "target", unit, classes, op, thr, f"lower: {'+'.join(classes)} {op} {thr}%")
+
+
+def test_days_met_and_spells_against_a_loop():
+    rng = np.random.default_rng(3)
+    q = np.exp(rng.uniform(math.log(500), math.log(60000), 200))
+    s = _series(q)
+    crits = [_target(">=", 40.0), _target("<", 30.0, ("very slow", "slow"), key="t2")]
+    crits += bloom_criteria(UNITS, ["very slow"], 50.0, 3)
+    res = analyse_series(s, AnalyticCurves(), UNITS, crits, [])
+    base = res.options[0]
+    for crit in crits:
+        met = []
+        for qq in q:
+            v = None if scalar_share(crit.classes[0], qq) is None else sum(scalar_share(c, qq) for c in crit.classes)
+            ok = v is not None and {">=": v >= crit.threshold_pct, "<": v < crit.threshold_pct,
+                                    ">": v > crit.threshold_pct}[crit.op]
+            met.append(ok)
+        assert base.met[crit.key].tolist() == met
+        # spells by a loop over the days
+        runs, cur = [], 0
+        for m in met + [False]:
+            if m:
+                cur += 1
+            elif cur:
+                runs.append(cur)
+                cur = 0
+        assert base.spells[crit.key].length.tolist() == runs
+    col = res.table
+    assert col["t1_met_days"][0] == int(np.sum(base.met["t1"]))
+    assert col["t1_longest_days"][0] == max(base.spells["t1"].length)
+    # outside-ladder days counted
+    assert col["outside_ladder_days"][0] == int(np.sum((q < LO) | (q > HI)))
+
+
+def test_bloom_spells_minimum_length_and_censoring():
+    # very slow > 50 % <=> s < 0.375 <=> q < LO * (HI/LO)**0.375 (about 3996 ML/d)
+    lowq, highq = 2000.0, 20000.0
+    pattern = "LLLHLLLLLHHLLHHHHHLLLLLLL"  # starts and ends in a low-flow spell
+    q = np.array([lowq if c == "L" else highq for c in pattern])
+    res = analyse_series(_series(q), AnalyticCurves(), UNITS, bloom_criteria(UNITS, ["very slow"], 50.0, 5), [])
+    crit = res.blooms[0]
+    sp = res.options[0].spells[crit.key]
+    # hand count of runs of L: 3 (censored start), 5, 2, 7 (censored end)
+    assert sp.length.tolist() == [3, 5, 2, 7]
+    assert sp.censored_start.tolist() == [True, False, False, False]
+    assert sp.censored_end.tolist() == [False, False, False, True]
+    assert res.table[f"{crit.key}_spells"][0] == 2  # the 5- and 7-day runs
+    assert res.table[f"{crit.key}_days"][0] == 12
+    assert res.table[f"{crit.key}_longest_days"][0] == 7
+    # SPELLS keeps qualifying spells and censored short ones (the 3-day run at the start), not the 2-day one
+    rows = [(o, k, n, qual) for o, k, n, qual in zip(res.spells["option"], res.spells["criterion"],
+                                                      res.spells["length_days"], res.spells["qualifies"])
+            if k == crit.key]
+    assert [(n, qual) for _, _, n, qual in rows] == [(3, False), (5, True), (7, True)]
+
+
+def test_options_and_daily_long_table():
+    q = np.full(60, 2000.0)
+    s = _series(q)
+    opts = parse_delivery_options("p: pulse start=2023-07-11 duration=10 ramp=2; c: constant start=2023-07-01 days=60")
+    dels = [added_flow(o, s, 60000.0) for o in opts]
+    crit = _target(">=", 40.0)
+    res = analyse_series(s, AnalyticCurves(), UNITS, [crit], dels, volume_given_ml=60000.0)
+    assert [o.name for o in res.options] == ["base", "p", "c"]
+    n = 60
+    assert len(res.daily["date"]) == 3 * n
+    assert res.daily["option"][n] == "p" and res.daily["date"][n] == "2023-07-01"
+    np.testing.assert_allclose(res.daily["q_m3s"], res.daily["q_mld"] * 1000 / 86400)
+    # constant: 1000 ML/d added, 3000 ML/d -> fast = 80 * log(3)/log(40) on every day
+    c_fast = res.daily["pct_lower_fast"][2 * n:]
+    np.testing.assert_allclose(c_fast, 80 * math.log(3) / math.log(40), rtol=1e-12)
+    # pulse: peak P = 60000 / (10 + 1 + 1); fast >= 40 % needs q >= LO * sqrt(40) = 6325 ML/d
+    peak = 60000.0 / 12.0
+    assert res.table["added_peak_mld"][1] == pytest.approx(peak)
+    q_need = LO * math.sqrt(HI / LO)
+    expected_days = sum(1 for w in [1 / 3, 2 / 3] + [1] * 10 + [2 / 3, 1 / 3] if 2000 + peak * w >= q_need)
+    assert res.table["t1_met_days"].tolist() == [0, expected_days, 0]
+    assert res.table["t1_gain_days"].tolist() == [0, expected_days, 0]
+    assert res.table["volume_ml"][1] == pytest.approx(60000.0, abs=1e-6)
+    assert res.table["delivery_start"][1] == "2023-07-11" and res.table["delivery_end"][1] == "2023-07-24"
+
+
+def test_series_entirely_outside_the_ladder_is_refused():
+    with pytest.raises(ChannelHabitatError, match="entirely outside the discharge ladder") as e:
+        analyse_series(_series(np.full(10, 50000.0)), AnalyticCurves(), UNITS, [], [])
+    assert e.value.parameter == "FLOWS"
+    assert "1000 to 40000 ML/d" in str(e.value)
+
+
+def test_bloom_parameters_checked():
+    with pytest.raises(ChannelHabitatError) as e:
+        bloom_criteria(UNITS, ["very slow"], 100.0, 5)
+    assert e.value.parameter == "BLOOM_SHARE"
+    with pytest.raises(ChannelHabitatError) as e:
+        bloom_criteria(UNITS, ["very slow"], 50.0, 0)
+    assert e.value.parameter == "BLOOM_MIN_DAYS"

@@ -223,6 +223,14 @@ def scheme_from_rows(rows, name: str = "custom table", parameter: str = "CLASS_T
         classes.append(HabitatClass(cname, bounds, colour))
     if not classes:
         raise ChannelHabitatError("the class table is empty: give at least one class", parameter)
+    keys = {}
+    for c in classes:
+        k = _field_key(c.name)
+        if k in keys:
+            raise ChannelHabitatError(
+                f"classes '{keys[k]}' and '{c.name}' give the same field name '{k}' (area_{k}_m2); "
+                "rename one so they differ in letters or digits", parameter)
+        keys[k] = c.name
     if len(classes) > 254:
         raise ChannelHabitatError("at most 254 classes fit a Byte raster", parameter)
     return ClassScheme(name, tuple(classes), source)
@@ -260,6 +268,12 @@ def scheme_from_csv(text: str, name: str = "class table file", parameter: str = 
     return scheme_from_rows(rows, name=name, parameter=parameter, source="class table file")
 
 
+def _field_key(name: str) -> str:
+    from .stats import field_key
+
+    return field_key(name)
+
+
 def _is_colour(s: str) -> bool:
     return len(s) == 7 and s[0] == "#" and all(ch in "0123456789abcdefABCDEF" for ch in s[1:])
 
@@ -287,6 +301,38 @@ def froude_preset(pool_fr=0.18, pool_vd=1.24, riffle_fr=0.41, riffle_vd=3.20) ->
     )
     # Display order pool, run, riffle is kept by names; the rule order must put run last.
     return ClassScheme("froude", classes, "Jowett 1993, NZ J. Marine and Freshwater Research 27:241-248")
+
+
+def depth_velocity_matrix(depth_breaks, speed_breaks, depth_names=None, speed_names=None,
+                          colours=None, name: str = "depth x velocity") -> ClassScheme:
+    """A depth x velocity matrix scheme: one class per (depth band, speed band), named
+    '<depth name> <speed name>' (e.g. 'shallow slow'), rows ordered depth-major.
+
+    ``depth_breaks`` / ``speed_breaks``: inner class boundaries (m, m/s), increasing. Bands are
+    lower-inclusive, upper-exclusive; the first band of each variable is open below, the last open
+    above. Default names: 'd1', 'd2', ... and 'v1', 'v2', ...
+    """
+    db = [float(b) for b in depth_breaks]
+    vb = [float(b) for b in speed_breaks]
+    for label, br, param in (("depth", db, "CLASS_TABLE"), ("speed", vb, "CLASS_TABLE")):
+        if any(b2 <= b1 for b1, b2 in zip(br, br[1:])):
+            raise ChannelHabitatError(f"{label} breaks must increase: {br}", param)
+    dn = list(depth_names or [f"d{i + 1}" for i in range(len(db) + 1)])
+    vn = list(speed_names or [f"v{i + 1}" for i in range(len(vb) + 1)])
+    if len(dn) != len(db) + 1 or len(vn) != len(vb) + 1:
+        raise ChannelHabitatError("give one name per band: breaks + 1 names for depth and for speed",
+                                  "CLASS_TABLE")
+    dlo, dhi = [None] + db, db + [None]
+    vlo, vhi = [None] + vb, vb + [None]
+    rows = []
+    k = 0
+    for i in range(len(dn)):
+        for j in range(len(vn)):
+            colour = (colours[k] if colours else "")
+            rows.append([f"{dn[i]} {vn[j]}", vlo[j], vhi[j], dlo[i], dhi[i], None, None, None, None, colour])
+            k += 1
+    return scheme_from_rows([["" if v is None else v for v in r] for r in rows], name=name,
+                            source="depth x velocity matrix")
 
 
 PRESETS = {"velocity": velocity_preset, "froude": froude_preset}

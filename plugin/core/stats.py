@@ -1,4 +1,4 @@
-"""Area-weighted statistics per group (chainage segment, reach zone, whole reach).
+"""Area-weighted statistics per group (chainage segment, reach zone, whole reach, chainage bin).
 
 Percentiles
 -----------
@@ -7,10 +7,21 @@ every element is repeated in proportion to its area: weight w_i = area_i / unit,
 the grid cell area for rasters (so on a regular grid the result is exactly ``np.percentile`` of the
 cell values) and the median face area for meshes. For integer weights the result equals
 ``np.percentile(np.repeat(values, weights), q)`` exactly (tested). With real weights the same
-formula is applied to cumulative weights: position h = (W - 1) q / 100 in the repeated sample.
+formula is applied to cumulative weights: position h = (W - 1) q / 100 in the repeated sample,
+W = sum of the weights; the value at position j is the value of the first element whose cumulative
+weight exceeds j, and positions between two integers interpolate linearly.
 
-Diversity over class area fractions p_i: Shannon H = -sum p_i ln p_i; Simpson 1 - sum p_i^2.
-Coefficient of variation: area-weighted population standard deviation over the weighted mean.
+Moments
+-------
+Mean: sum(a x) / sum(a). Coefficient of variation: the area-weighted population standard deviation
+sqrt(sum(a (x - mean)^2) / sum(a)) over the mean (computed from shifted sums in float64).
+
+Diversity over class area fractions p_i (of the classified area): Shannon H = -sum p_i ln p_i
+(natural log, 0 ln 0 = 0; Shannon 1948); Simpson 1 - sum p_i^2 (Simpson 1949, the Gini-Simpson form).
+
+Speed: one value sort per variable is shared by every grouping (``value_orders``); when all weights
+are equal (rasters) percentiles come from per-group partial sorts (``np.percentile``) instead, and the
+sums of every grouping come from one pass over a combined group key.
 """
 
 from __future__ import annotations
@@ -23,6 +34,68 @@ PERCENTILES = (0.0, 10.0, 25.0, 50.0, 75.0, 90.0, 100.0)
 PERCENTILE_LABELS = ("min", "p10", "p25", "p50", "p75", "p90", "max")
 
 
+# ----------------------------------------------------------------------------------------------
+# Sorting helpers
+# ----------------------------------------------------------------------------------------------
+
+def value_order(values) -> np.ndarray:
+    """Indices sorting ``values`` ascending (NaN last). Compute once per variable and pass it to
+    :func:`group_order` / :func:`grouped_weighted_percentiles` for every grouping of the same
+    elements (segments, zones, whole reach, chainage bins): the value sort is the costly part."""
+    return np.argsort(values, kind="quicksort")
+
+
+def _pool_map(func, items, threads: int):
+    items = list(items)
+    if threads <= 1 or len(items) < 2:
+        return [func(i) for i in items]
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=min(threads, len(items))) as pool:
+        return list(pool.map(func, items))
+
+
+def value_orders(arrays, threads: int = 2) -> list:
+    """:func:`value_order` of several arrays, sorted side by side in threads (numpy's sort
+    releases the GIL, so two cores sort two variables at once)."""
+    arrays = list(arrays)
+    if max((a.size for a in arrays), default=0) < 200_000:
+        threads = 1
+    return _pool_map(value_order, arrays, threads)
+
+
+def group_keys(groups, n_groups: int, valid=None) -> np.ndarray:
+    """Group number per element as a small integer key; elements outside [0, n_groups) or not
+    ``valid`` get the key ``n_groups`` (sorted last and ignored)."""
+    g = np.asarray(groups)
+    bad = (g < 0) | (g >= n_groups)
+    if valid is not None:
+        bad |= ~np.asarray(valid)
+    dtype = np.int16 if n_groups < 32767 else np.int32  # radix sort on 16-bit keys is fastest
+    key = g.astype(dtype)
+    if bad.any():
+        key[bad] = n_groups
+    return key
+
+
+def group_order(values, groups, vorder=None, n_groups: int | None = None, valid=None) -> np.ndarray:
+    """Indices sorting elements by group, then by value within the group. ``vorder`` (from
+    :func:`value_order`) saves the value sort. Elements outside the groups (or not ``valid``) go
+    last."""
+    if vorder is None:
+        vorder = value_order(values)
+    if n_groups is None:
+        g = np.asarray(groups)
+        n_groups = int(g.max()) + 1 if g.size else 0
+    key = group_keys(groups, n_groups, valid)
+    # A stable sort on small integer keys keeps the value order inside each group (radix sort).
+    return vorder[np.argsort(key[vorder], kind="stable")]
+
+
+# ----------------------------------------------------------------------------------------------
+# Percentiles
+# ----------------------------------------------------------------------------------------------
+
 def weighted_percentiles(values, weights, q) -> np.ndarray:
     """Frequency-weighted linear percentiles of one sample (see module docstring)."""
     values = np.asarray(values, dtype=np.float64)
@@ -31,46 +104,44 @@ def weighted_percentiles(values, weights, q) -> np.ndarray:
     return grouped_weighted_percentiles(values, weights, groups, 1, q)[0]
 
 
-def group_order(values, groups) -> np.ndarray:
-    """Indices sorting elements by group, then by value within the group."""
-    order = np.argsort(values, kind="quicksort")
-    g = groups[order]
-    if g.size and g.max() < 32767 and g.min() >= -32768:
-        g = g.astype(np.int16)  # radix sort on 16-bit keys is several times faster
-    # Stable sort on small integer keys keeps the value order inside each group (radix sort).
-    order2 = np.argsort(g, kind="stable")
-    return order[order2]
-
-
-def grouped_weighted_percentiles(values, weights, groups, n_groups: int, q, order=None) -> np.ndarray:
-    """(n_groups, len(q)) percentiles; NaN for groups with no weight. Elements with a group
-    outside [0, n_groups) are ignored. ``order`` may be passed from :func:`group_order`."""
-    values = np.asarray(values)
-    weights = np.asarray(weights, dtype=np.float64)
-    groups = np.asarray(groups)
+def _check_q(q) -> np.ndarray:
     q = np.atleast_1d(np.asarray(q, dtype=np.float64))
     if np.any((q < 0) | (q > 100)):
         raise ValueError("percentiles must lie in [0, 100]")
-    keep = (groups >= 0) & (groups < n_groups) & (weights > 0) & np.isfinite(values)
-    if not np.all(keep):
-        values, weights, groups = values[keep], weights[keep], groups[keep]
-        order = None
+    return q
+
+
+def grouped_weighted_percentiles(values, weights, groups, n_groups: int, q, order=None,
+                                 vorder=None) -> np.ndarray:
+    """(n_groups, len(q)) area-weighted percentiles; NaN for groups with no weight.
+
+    Elements with a group outside [0, n_groups), a non-finite value or no weight are ignored.
+    ``vorder`` (from :func:`value_order`) or ``order`` (from :func:`group_order` with the same
+    validity) may be passed to save sorting.
+    """
+    values = np.asarray(values)
+    weights = np.asarray(weights, dtype=np.float64)
+    q = _check_q(q)
     out = np.full((n_groups, len(q)), np.nan)
-    if values.size == 0:
+    if values.size == 0 or n_groups == 0:
         return out
+    valid = np.isfinite(values) & (weights > 0)
+    key = group_keys(groups, n_groups, valid)
     if order is None:
-        order = group_order(values, groups)
-    v = values[order].astype(np.float64)
-    g = groups[order]
+        if vorder is None:
+            vorder = value_order(values)
+        order = vorder[np.argsort(key[vorder], kind="stable")]
+    counts = np.bincount(key, minlength=n_groups + 1)[:n_groups]
+    n_used = int(counts.sum())
+    if n_used == 0:
+        return out
+    order = order[:n_used]
     cw = np.cumsum(weights[order])
-    counts = np.bincount(g, minlength=n_groups)
     ends = np.cumsum(counts)
     starts = ends - counts
-    present = counts > 0
-    gi = np.nonzero(present)[0]
+    gi = np.nonzero(counts > 0)[0]
     s, e = starts[gi], ends[gi]
     base = np.where(s > 0, cw[np.maximum(s - 1, 0)], 0.0)
-    base[s == 0] = 0.0
     total = cw[e - 1] - base
     for j, qq in enumerate(q):
         h = np.maximum((total - 1.0) * qq / 100.0, 0.0)
@@ -80,30 +151,55 @@ def grouped_weighted_percentiles(values, weights, groups, n_groups: int, q, orde
         k1 = np.searchsorted(cw, base + j0 + 1.0, side="right")
         k0 = np.clip(k0, s, e - 1)
         k1 = np.clip(k1, s, e - 1)
-        out[gi, j] = v[k0] + (v[k1] - v[k0]) * frac
+        v0 = values[order[k0]].astype(np.float64)
+        v1 = values[order[k1]].astype(np.float64)
+        out[gi, j] = v0 + (v1 - v0) * frac
     return out
 
 
+def grouped_percentiles(values, groups, n_groups: int, q, perm=None, counts=None) -> np.ndarray:
+    """(n_groups, len(q)) unweighted percentiles (numpy 'linear'), each group by ``np.percentile``
+    on its own values (a partial sort). ``perm``/``counts``: a stable group order and group sizes
+    from :class:`Grouping`, reused across variables. Non-finite values are ignored."""
+    values = np.asarray(values)
+    q = _check_q(q)
+    out = np.full((n_groups, len(q)), np.nan)
+    if values.size == 0 or n_groups == 0:
+        return out
+    finite = np.isfinite(values)
+    if perm is None or counts is None or not finite.all():
+        key = group_keys(groups, n_groups, finite)
+        counts = np.bincount(key, minlength=n_groups + 1)[:n_groups]
+        perm = np.argsort(key, kind="stable") if n_groups > 1 else np.flatnonzero(key == 0)
+    ends = np.cumsum(counts)
+    starts = ends - counts
+    gathered = values[perm[: int(ends[-1])]] if len(ends) else values[:0]
+    for g in np.nonzero(counts > 0)[0]:
+        out[g] = np.percentile(gathered[starts[g]:ends[g]].astype(np.float64), q)
+    return out
+
+
+# ----------------------------------------------------------------------------------------------
+# Sums and moments
+# ----------------------------------------------------------------------------------------------
+
 def grouped_sum(values, groups, n_groups: int) -> np.ndarray:
-    groups = np.asarray(groups)
-    keep = (groups >= 0) & (groups < n_groups)
-    return np.bincount(groups[keep], weights=np.asarray(values, dtype=np.float64)[keep],
-                       minlength=n_groups)
+    """Sum of ``values`` per group (elements outside [0, n_groups) ignored)."""
+    key = group_keys(groups, n_groups)
+    return np.bincount(key, weights=np.asarray(values, dtype=np.float64), minlength=n_groups + 1)[:n_groups]
 
 
 def grouped_mean_cv(values, weights, groups, n_groups: int):
     """Area-weighted mean and coefficient of variation (population std / mean) per group."""
     values = np.asarray(values, dtype=np.float64)
     w = np.asarray(weights, dtype=np.float64)
-    sw = grouped_sum(w, groups, n_groups)
-    swx = grouped_sum(w * values, groups, n_groups)
+    key = group_keys(groups, n_groups)
+    sw = np.bincount(key, weights=w, minlength=n_groups + 1)[:n_groups]
+    swx = np.bincount(key, weights=w * values, minlength=n_groups + 1)[:n_groups]
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = swx / sw
-        g = np.asarray(groups)
-        keep = (g >= 0) & (g < n_groups)
-        dev = np.zeros_like(values)
-        dev[keep] = values[keep] - mean[g[keep]]
-        var = grouped_sum(w * dev * dev, groups, n_groups) / sw
+        dev = values - np.append(mean, 0.0)[key]
+        var = np.bincount(key, weights=w * dev * dev, minlength=n_groups + 1)[:n_groups] / sw
         cv = np.sqrt(var) / mean
     mean[sw <= 0] = np.nan
     cv[sw <= 0] = np.nan
@@ -143,40 +239,183 @@ def field_key(class_name: str) -> str:
     return k or "class"
 
 
+# ----------------------------------------------------------------------------------------------
+# The statistics table
+# ----------------------------------------------------------------------------------------------
+
+class Grouping:
+    """One way of grouping the elements (segments, zones, ...): keys and, lazily, a stable order."""
+
+    def __init__(self, groups, n_groups: int):
+        self.n_groups = int(n_groups)
+        self.groups = np.asarray(groups)
+        self.key = group_keys(self.groups, self.n_groups)
+        self.counts = np.bincount(self.key, minlength=self.n_groups + 1)[: self.n_groups]
+        self._perm = None
+
+    @property
+    def perm(self) -> np.ndarray:
+        """Element indices ordered by group (stable; elements outside the groups left out)."""
+        if self._perm is None:
+            n_used = int(self.counts.sum())
+            if self.n_groups == 1:
+                self._perm = np.flatnonzero(self.key == 0)
+            else:
+                self._perm = np.argsort(self.key, kind="stable")[:n_used]
+        return self._perm
+
+
+def _combined_sums(groupings, quantities, max_cells: int = 1 << 22):
+    """Sums of each quantity per group of each grouping, from one bincount per quantity over the
+    combined key of all groupings (when the combined table is small), else per grouping.
+    ``quantities`` may yield arrays lazily (one is alive at a time)."""
+    sizes = [g.n_groups + 1 for g in groupings]
+    total = int(np.prod(sizes, dtype=np.float64))
+    out = [[] for _ in groupings]
+    if total <= max_cells:
+        combo = np.zeros(len(groupings[0].key), dtype=np.int64)
+        for g, size in zip(reversed(groupings), reversed(sizes)):
+            combo *= size
+            combo += g.key
+        nd = len(groupings)
+        for qv in quantities:
+            t = np.bincount(combo, weights=qv, minlength=total).reshape(sizes[::-1])
+            for i, g in enumerate(groupings):
+                axis_i = nd - 1 - i  # the first grouping is the least significant digit
+                other = tuple(a for a in range(nd) if a != axis_i)
+                out[i].append(t.sum(axis=other)[: g.n_groups])
+        return out
+    for qv in quantities:
+        for i, g in enumerate(groupings):
+            out[i].append(np.bincount(g.key, weights=qv, minlength=g.n_groups + 1)[: g.n_groups])
+    return out
+
+
+def summarise_groupings(speed, depth, area, codes, groupings, class_names, weight_unit: float, froude=None,
+                        vorders=None, percentiles: bool = True, threads: int = 2) -> list:
+    """:func:`summarise` for several groupings of the same elements at once, sharing the work.
+
+    ``groupings``: list of (groups, n_groups) or :class:`Grouping`. Returns one ordered column dict
+    per grouping (columns as :func:`summarise`).
+    """
+    groupings = [g if isinstance(g, Grouping) else Grouping(*g) for g in groupings]
+    speed = np.asarray(speed)
+    depth = np.asarray(depth)
+    area = np.asarray(area, dtype=np.float64)
+    codes = np.asarray(codes)
+    n_cls = len(class_names)
+    # --- sums: area, moments (shifted for accuracy), class areas --------------------------------
+    variables = [("v", speed, "ms"), ("d", depth, "m")]
+    if froude is not None:
+        variables.append(("fr", np.asarray(froude), ""))
+    shifts = []
+
+    def quantities():  # one array alive at a time: memory stays proportional to one column
+        yield area
+        for _, vals, _ in variables:
+            x = vals.astype(np.float64)
+            fin = np.isfinite(x)
+            if fin.all():
+                c = float(np.dot(x, area) / area.sum()) if area.sum() > 0 else 0.0
+                x -= c
+                a = area
+            else:
+                c = float(np.average(x[fin], weights=area[fin])) if area[fin].sum() > 0 else 0.0
+                x = np.where(fin, x - c, 0.0)
+                a = np.where(fin, area, 0.0)
+            shifts.append(c)
+            yield a
+            ax = a * x
+            yield ax
+            ax *= x
+            yield ax
+            del ax, x
+        for k in range(1, n_cls + 1):
+            yield np.where(codes == k, area, 0.0)
+
+    sums = _combined_sums(groupings, quantities())
+    # --- percentiles ---------------------------------------------------------------------------
+    w = area / float(weight_unit)
+    equal = bool(w.size) and bool(np.all(w == 1.0))
+    pct = [dict() for _ in groupings]
+    if percentiles:
+        pvars = [(var, vals) for var, vals, _ in variables[:2]]
+        if equal:
+            jobs = [(gi, var, vals) for gi in range(len(groupings)) for var, vals in pvars]
+            for g in groupings:
+                g.perm  # noqa: B018 - build orders before the threads share them
+
+            def run(job):
+                gi, var, vals = job
+                g = groupings[gi]
+                return grouped_percentiles(vals, g.groups, g.n_groups, PERCENTILES, perm=g.perm, counts=g.counts)
+        else:
+            if vorders is None or vorders[0] is None:
+                vorders = value_orders([vals for _, vals in pvars], threads=threads)
+            jobs = [(gi, var, vals, vo) for gi in range(len(groupings)) for (var, vals), vo in zip(pvars, vorders)]
+
+            def run(job):
+                gi, var, vals, vo = job
+                g = groupings[gi]
+                return grouped_weighted_percentiles(vals, w, g.groups, g.n_groups, PERCENTILES, vorder=vo)
+        results = _pool_map(run, jobs, threads if speed.size >= 200_000 else 1)
+        for job, res in zip(jobs, results):
+            pct[job[0]][job[1]] = res
+    # --- assemble ------------------------------------------------------------------------------
+    out = []
+    for gi, g in enumerate(groupings):
+        s = sums[gi]
+        wet = s[0]
+        cols = {"wet_area_m2": wet, "n_elements": g.counts.astype(np.int64)}
+        for vi, (var, _, unit) in enumerate(variables):
+            sa, sax, saxx = s[1 + 3 * vi: 4 + 3 * vi]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                m = sax / sa
+                var_ = np.maximum(saxx / sa - m * m, 0.0)
+                mean = m + shifts[vi]
+                cv = np.sqrt(var_) / mean
+            mean = np.where(sa > 0, mean, np.nan)
+            cv = np.where(sa > 0, cv, np.nan)
+            if var == "fr":
+                cols["fr_mean"] = mean
+                continue
+            if percentiles:
+                for j, lab in enumerate(PERCENTILE_LABELS):
+                    cols[f"{var}_{lab}_{unit}"] = pct[gi][var][:, j]
+            cols[f"{var}_mean_{unit}"] = mean
+            cols[f"{var}_cv"] = cv
+        if froude is not None:  # keep fr_mean after the depth columns
+            cols["fr_mean"] = cols.pop("fr_mean")
+        ca = np.column_stack(s[1 + 3 * len(variables):]) if n_cls else np.zeros((g.n_groups, 0))
+        classified = ca.sum(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            frac = ca / wet[:, None]
+            # Diversity over the class distribution: fractions of the classified area (= the wet
+            # area for a scheme that covers every value, as the presets do).
+            p = ca / classified[:, None]
+        for j, name in enumerate(class_names):
+            cols[f"area_{field_key(name)}_m2"] = ca[:, j]
+        for j, name in enumerate(class_names):
+            cols[f"pct_{field_key(name)}"] = np.where(wet > 0, 100.0 * frac[:, j], np.nan)
+        has = classified > 0
+        cols["shannon"] = np.where(has, shannon(np.nan_to_num(p)), np.nan)
+        cols["simpson"] = np.where(has, simpson(np.nan_to_num(p)), np.nan)
+        out.append(cols)
+    return out
+
+
 def summarise(speed, depth, area, codes, groups, n_groups: int, class_names, weight_unit: float,
-              froude=None) -> dict:
+              froude=None, vorders=None, percentiles: bool = True) -> dict:
     """The statistics table of DESIGN.md / maphabitat for each group, as ordered columns.
 
     Returns {column name: array of length n_groups}. Speed in m/s, depth in m, areas in m2,
-    percentages in % of the group's wet area.
+    percentages in % of the group's wet area. ``vorders``: optional (speed order, depth order) from
+    :func:`value_orders`, shared between groupings of the same elements. ``percentiles=False``
+    leaves out the percentile columns (v_min_ms ... d_max_m), which need the sort.
+
+    Columns: wet_area_m2, n_elements, v_min_ms, v_p10_ms, v_p25_ms, v_p50_ms, v_p75_ms, v_p90_ms,
+    v_max_ms, v_mean_ms, v_cv, the same for depth (d_..._m, d_mean_m, d_cv), fr_mean (with
+    ``froude``), area_<class>_m2 and pct_<class> per class, shannon, simpson.
     """
-    groups = np.asarray(groups)
-    area = np.asarray(area, dtype=np.float64)
-    w = area / float(weight_unit)
-    cols = {}
-    wet = grouped_sum(area, groups, n_groups)
-    cols["wet_area_m2"] = wet
-    inside = (groups >= 0) & (groups < n_groups)
-    cols["n_elements"] = np.bincount(groups[inside], minlength=n_groups).astype(np.int64)
-    for var, vals, unit in (("v", speed, "ms"), ("d", depth, "m")):
-        pct = grouped_weighted_percentiles(vals, w, groups, n_groups, PERCENTILES)
-        for j, lab in enumerate(PERCENTILE_LABELS):
-            cols[f"{var}_{lab}_{unit}"] = pct[:, j]
-        mean, cv = grouped_mean_cv(vals, area, groups, n_groups)
-        cols[f"{var}_mean_{unit}"] = mean
-        cols[f"{var}_cv"] = cv
-    if froude is not None:
-        fmean, _ = grouped_mean_cv(froude, area, groups, n_groups)
-        cols["fr_mean"] = fmean
-    ca = class_areas(codes, area, groups, n_groups, len(class_names))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        frac = ca / wet[:, None]
-    for j, name in enumerate(class_names):
-        cols[f"area_{field_key(name)}_m2"] = ca[:, j]
-    for j, name in enumerate(class_names):
-        cols[f"pct_{field_key(name)}"] = np.where(wet > 0, 100.0 * frac[:, j], np.nan)
-    cols["shannon"] = shannon(np.nan_to_num(frac))
-    cols["simpson"] = simpson(np.nan_to_num(frac))
-    cols["shannon"] = np.where(wet > 0, cols["shannon"], np.nan)
-    cols["simpson"] = np.where(wet > 0, cols["simpson"], np.nan)
-    return cols
+    return summarise_groupings(speed, depth, area, codes, [(groups, n_groups)], class_names, weight_unit,
+                               froude=froude, vorders=vorders, percentiles=percentiles)[0]

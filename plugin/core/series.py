@@ -583,45 +583,190 @@ def volume_to_ml(value: float, unit: str, parameter: str = "ENV_VOLUME") -> floa
 
 
 # ------------------------------------------------------------------------------------------
-# Habitat through time: criteria, options, the three tables
+# Habitat through time: the curves of one regime, criteria, options, the three tables
 # ------------------------------------------------------------------------------------------
-_OPS = {
-    ">=": np.greater_equal,
-    ">": np.greater,
-    "<=": np.less_equal,
-    "<": np.less,
-}
+class CurveView:
+    """One regime of the flow-habitat curves (``core.curves.FlowHabitatCurves``) as habitatseries
+    asks them: class shares at any discharges, interpolated exactly as flowhabitat does (PCHIP on
+    ln discharge, exact at the runs, NaN outside the runs - never extrapolated)."""
+
+    def __init__(self, curves, regime: str | None = None, parameter: str = "REGIME"):
+        regime = (regime or "").strip()
+        if not regime:
+            if len(curves.regimes) != 1:
+                raise ChannelHabitatError(
+                    f"the curves hold several regimes ({', '.join(curves.regimes)}): name the one the flow "
+                    "series applies to", parameter)
+            regime = curves.regimes[0]
+        elif regime not in curves.regimes:
+            match = [r for r in curves.regimes if r.casefold() == regime.casefold()]
+            if not match:
+                raise ChannelHabitatError(
+                    f"no regime '{regime}' in the curves (regimes: {', '.join(curves.regimes)})", parameter)
+            regime = match[0]
+        self.curves = curves
+        self.regime = regime
+        self.ladder_mld = curves.ladder(regime)
+        self.classes = list(curves.class_names)
+        self.unit_keys = [u.key for u in curves.units]
+
+    def default_units(self) -> list:
+        """The reach and every zone (segments only when asked for)."""
+        return [u.key for u in self.curves.units if u.scope in ("reach", "zone")]
+
+    def resolve_units(self, text: str, parameter: str = "ZONES") -> list:
+        """'reach, lower, segment 3' -> unit keys (empty text: the reach and every zone)."""
+        names = [t.strip() for t in re.split(r"[,;\n]", text or "") if t.strip()]
+        if not names:
+            return self.default_units()
+        out = []
+        for name in names:
+            try:
+                key = self.unit_keys[self.curves.unit_index(name)]
+            except ChannelHabitatError as err:
+                raise ChannelHabitatError(str(err), parameter) from None
+            if key not in out:
+                out.append(key)
+        return out
+
+    def resolve_classes(self, text: str, parameter: str) -> tuple:
+        """'very slow+slow' -> canonical class names."""
+        parts = [p for p in re.split(r"[+,]", text or "") if p.strip()]
+        try:
+            idx = self.curves.class_indices(parts)
+        except ChannelHabitatError as err:
+            raise ChannelHabitatError(str(err), parameter) from None
+        return tuple(self.classes[i] for i in idx)
+
+    def inside(self, q_mld) -> np.ndarray:
+        from .curves import inside_ladder
+
+        q = np.asarray(q_mld, dtype=np.float64)
+        return inside_ladder(self.ladder_mld, q) & np.isfinite(q)
+
+    def percent(self, unit: str, classes, q_mld) -> np.ndarray:
+        """Share (%) of the summed ``classes`` in ``unit`` at each discharge (a class set is one curve)."""
+        return self.curves.percent_at(self.regime, np.asarray(q_mld, dtype=np.float64), unit, list(classes))
+
+    def grid(self, q_mld, units) -> np.ndarray:
+        """(n_q, len(units), n_classes) shares of every class in the given units."""
+        g = self.curves.percent_grid(self.regime, np.asarray(q_mld, dtype=np.float64))
+        idx = [self.curves.unit_index(u) for u in units]
+        return g[:, idx, :]
+
+
+class WuaCurves:
+    """Weighted usable area against discharge for one regime (from a suitability results table),
+    interpolated in the same way as the class shares (PCHIP on ln q, NaN outside its runs).
+
+    Table columns (case-insensitive): regime, q_mld (or q_m3s), scope, unit, wua_m2, and optionally
+    curve_set or species (one curve per value). Only the units reported in DAILY are used."""
+
+    def __init__(self, names, ladders, values):
+        self.names = list(names)
+        self._ladders = ladders
+        self._values = values
+
+    def value(self, name: str, q_mld) -> np.ndarray:
+        from .curves import pchip_log_q
+
+        return pchip_log_q(self._ladders[name], self._values[name], np.asarray(q_mld, dtype=np.float64))
+
+    @classmethod
+    def from_table(cls, columns: dict, regime: str, units, parameter: str = "WUA") -> WuaCurves:
+        cols = {str(k).strip().lower(): list(v) for k, v in columns.items()}
+        if "q_mld" not in cols and "q_m3s" not in cols:
+            raise ChannelHabitatError("the WUA table needs a q_mld (or q_m3s) column", parameter)
+        missing = [c for c in ("regime", "scope", "unit", "wua_m2") if c not in cols]
+        if missing:
+            raise ChannelHabitatError(
+                f"the WUA table has no column {', '.join(missing)} (needs regime, q_mld, scope, unit, wua_m2 "
+                "and optionally species)", parameter)
+        n = len(cols["regime"])
+        label_col = next((c for c in ("curve_set", "species") if c in cols), None)
+        wanted = {str(u).casefold(): u for u in units}
+        data: dict = {}
+        for i in range(n):
+            if str(cols["regime"][i] or "").strip().casefold() != regime.casefold():
+                continue
+            scope = str(cols["scope"][i] or "").strip().lower()
+            unit = str(cols["unit"][i] or "").strip()
+            if scope == "segment":
+                if re.fullmatch(r"\d+(\.0+)?", unit):
+                    unit = str(int(float(unit)))
+                key = f"segment {unit}"
+            elif scope == "reach":
+                key = "reach"
+            elif scope == "zone":
+                key = unit
+            else:
+                raise ChannelHabitatError(f"WUA table row {i + 1}: scope '{scope}' is not reach, zone or segment",
+                                          parameter)
+            if key.casefold() not in wanted:
+                continue
+            key = wanted[key.casefold()]
+            q = _number(cols["q_mld"][i]) if "q_mld" in cols else None
+            if q is None and "q_m3s" in cols:
+                q3 = _number(cols["q_m3s"][i])
+                q = None if q3 is None else q3 / M3S_PER_MLD
+            w = _number(cols["wua_m2"][i])
+            if q is None or not math.isfinite(q) or q <= 0:
+                raise ChannelHabitatError(f"WUA table row {i + 1}: the discharge is not a positive number", parameter)
+            if w is None or not math.isfinite(w) or w < 0:
+                raise ChannelHabitatError(f"WUA table row {i + 1}: wua_m2 '{cols['wua_m2'][i]}' is not a number "
+                                          ">= 0", parameter)
+            species = str(cols[label_col][i] or "").strip() if label_col else ""
+            name = "wua_" + (f"{field_fragment(species)}_" if species else "") + f"{field_fragment(key)}_m2"
+            runs = data.setdefault(name, {})
+            if q in runs:
+                raise ChannelHabitatError(
+                    f"WUA table row {i + 1}: two values for {species + ' ' if species else ''}{key} at {q:g} ML/d",
+                    parameter)
+            runs[q] = w
+        if not data:
+            raise ChannelHabitatError(
+                f"the WUA table has no rows for regime '{regime}' and the reported units ({', '.join(units)})",
+                parameter)
+        ladders, values = {}, {}
+        for name, runs in data.items():
+            qs = np.array(sorted(runs), dtype=np.float64)
+            ladders[name] = qs
+            values[name] = np.array([runs[q] for q in qs], dtype=np.float64)
+        return cls(list(data), ladders, values)
 
 
 @dataclass(frozen=True)
 class Criterion:
-    """One daily yes/no question: the share of ``classes`` in ``unit`` compared with a threshold.
+    """One daily yes/no question: a target (``core.curves.Target``) evaluated on every day.
 
-    ``kind`` is 'target' (a stated target, spells of days meeting it) or 'bloom' (very slow water
-    above a share of the unit, spells of at least ``min_days`` count as bloom-risk spells).
-    ``unit`` is (scope, unit) as in the CURVES table, e.g. ('zone', 'lower'), ('reach', 'reach').
+    ``kind`` is 'target' (a stated target; every spell of days meeting it is reported) or 'bloom'
+    (the share of very slow water above a stated share of the unit; spells of at least ``min_days``
+    are bloom-risk spells). ``key`` names the fields: 't1', 't2', ... or 'bloom_<unit>'.
     """
 
     key: str
     kind: str
-    unit: tuple
-    classes: tuple
-    op: str
-    threshold_pct: float
-    text: str
+    target: object  # core.curves.Target: unit, classes, op, threshold_pct, text, met()
     min_days: int = 1
 
+    @property
+    def unit(self) -> str:
+        return self.target.unit
+
+    @property
+    def classes(self) -> tuple:
+        return tuple(self.target.classes)
+
+    @property
+    def text(self) -> str:
+        if self.kind == "bloom":
+            return f"{self.target.text} for at least {self.min_days} days"
+        return self.target.text
+
     def evaluate(self, pct: np.ndarray):
-        """(met, known) per day from the summed class share (NaN = unknown, outside the ladder)."""
+        """(met, known) per day from the class-set share (NaN = unknown, outside the ladder)."""
         known = np.isfinite(pct)
-        with np.errstate(invalid="ignore"):
-            met = _OPS[self.op](pct, self.threshold_pct) & known
-        return met, known
-
-
-def unit_label(unit: tuple) -> str:
-    scope, name = unit
-    return "reach" if scope == "reach" else (f"segment {name}" if scope == "segment" else str(name))
+        return self.target.met(pct) & known, known
 
 
 def field_fragment(text: str) -> str:
@@ -630,20 +775,21 @@ def field_fragment(text: str) -> str:
     return k or "x"
 
 
+def target_criteria(targets) -> list:
+    """Targets (core.curves.parse_targets) -> criteria t1, t2, ..."""
+    return [Criterion(f"t{i + 1}", "target", t) for i, t in enumerate(targets)]
+
+
 def bloom_criteria(units, classes, share_pct: float, min_days: int) -> list:
-    """One bloom-risk criterion per unit: share of ``classes`` strictly above ``share_pct``."""
-    if not (0.0 <= share_pct < 100.0):
+    """One bloom-risk criterion per unit: the share of ``classes`` strictly above ``share_pct``."""
+    from .curves import Target
+
+    if not (math.isfinite(share_pct) and 0.0 <= share_pct < 100.0):
         raise ChannelHabitatError(f"the bloom-risk share {share_pct:g} % must lie in [0, 100)", "BLOOM_SHARE")
     if int(min_days) < 1:
         raise ChannelHabitatError("the minimum bloom-risk spell must be at least 1 day", "BLOOM_MIN_DAYS")
-    out = []
-    cls = " + ".join(classes)
-    for u in units:
-        label = unit_label(u)
-        out.append(Criterion(f"bloom_{field_fragment(label)}", "bloom", tuple(u), tuple(classes), ">",
-                             float(share_pct), f"{label}: {cls} > {share_pct:g}% for >= {int(min_days)} days",
-                             int(min_days)))
-    return out
+    return [Criterion(f"bloom_{field_fragment(u)}", "bloom", Target(u, tuple(classes), ">", float(share_pct)),
+                      int(min_days)) for u in units]
 
 
 @dataclass
@@ -660,7 +806,7 @@ class OptionResult:
     pct: dict  # (unit, class) -> percent per day (NaN outside the ladder)
     met: dict  # criterion key -> bool per day
     known: dict  # criterion key -> bool per day
-    share: dict  # criterion key -> summed class share per day
+    share: dict  # criterion key -> class-set share per day
     spells: dict  # criterion key -> Spells
     wua: dict = field(default_factory=dict)  # wua field name -> m2 per day
 
@@ -674,7 +820,7 @@ class SeriesResult:
     series: FlowSeries
     regime: str
     ladder_mld: np.ndarray
-    units: list  # [(scope, unit)] reported in DAILY
+    units: list  # unit keys reported in DAILY
     classes: list
     criteria: list  # [Criterion]: targets first, then bloom
     options: list  # [OptionResult], base first
@@ -693,25 +839,21 @@ class SeriesResult:
         return [c for c in self.criteria if c.kind == "bloom"]
 
 
-def analyse_series(series: FlowSeries, curves, units, criteria, deliveries, volume_given_ml=None,
-                   wua=None, progress=None) -> SeriesResult:
-    """Evaluate the base series and every delivery against the curves.
+def analyse_series(series: FlowSeries, view: CurveView, units, criteria, deliveries, volume_given_ml=None,
+                   wua: WuaCurves | None = None, progress=None) -> SeriesResult:
+    """Evaluate the base series and every delivery (``Delivery``) against one regime's curves.
 
-    ``curves`` answers ``curves.percent(unit, classes, q_mld) -> array`` (the summed share of
-    ``classes`` in ``unit`` at each discharge, NaN outside the ladder, interpolated as flowhabitat
-    does), and has ``regime``, ``ladder_mld`` and ``classes``. ``wua`` (optional) answers
-    ``wua.names`` and ``wua.value(name, q_mld)`` in m2 (NaN outside its ladder).
-    ``deliveries`` are :class:`Delivery` objects (generated patterns and alternative columns).
+    Refuses a base series with no day inside the discharge ladder. Days outside the ladder are
+    flagged (``in_ladder``), counted, and neither meet nor fail a criterion (they break spells).
     """
     from .errors import as_progress
 
     progress = as_progress(progress)
-    base_in = _in_ladder(curves, series.q_mld)
-    if not np.any(base_in):
-        lo, hi = float(np.min(curves.ladder_mld)), float(np.max(curves.ladder_mld))
+    if not np.any(view.inside(series.q_mld)):
+        lo, hi = float(view.ladder_mld[0]), float(view.ladder_mld[-1])
         raise ChannelHabitatError(
             f"the flow series ({float(np.min(series.q_mld)):.0f} to {float(np.max(series.q_mld)):.0f} ML/d) lies "
-            f"entirely outside the discharge ladder of regime '{curves.regime}' ({lo:.0f} to {hi:.0f} ML/d): "
+            f"entirely outside the discharge ladder of regime '{view.regime}' ({lo:.0f} to {hi:.0f} ML/d): "
             "no day can be evaluated (habitatseries never extrapolates). Check the unit of the series, or add "
             "runs covering these discharges to the scenario table behind the curves", "FLOWS")
     plan = [("base", "base", "the flow series as given", np.zeros(series.n_days))]
@@ -723,26 +865,21 @@ def analyse_series(series: FlowSeries, curves, units, criteria, deliveries, volu
         q = series.q_mld + added
         if np.any(q < 0):
             raise ChannelHabitatError(f"option '{name}' gives negative flows", "FLOWS")
-        inl = _in_ladder(curves, q)
-        pct = {}
-        for u in units:
-            for c in curves.classes:
-                pct[(tuple(u), c)] = np.asarray(curves.percent(tuple(u), (c,), q), dtype=np.float64)
+        inl = view.inside(q)
+        g = view.grid(q, units)
+        pct = {(u, c): g[:, i, j] for i, u in enumerate(units) for j, c in enumerate(view.classes)}
         met, known, share, spells = {}, {}, {}, {}
         for crit in criteria:
-            s = np.asarray(curves.percent(crit.unit, crit.classes, q), dtype=np.float64)
+            s = np.asarray(view.percent(crit.unit, crit.classes, q), dtype=np.float64)
             m, kn = crit.evaluate(s)
             share[crit.key], met[crit.key], known[crit.key] = s, m, kn
             spells[crit.key] = find_spells(m, kn)
-        wv = {}
-        if wua is not None:
-            for wname in wua.names:
-                wv[wname] = np.asarray(wua.value(wname, q), dtype=np.float64)
+        wv = {w: np.asarray(wua.value(w, q), dtype=np.float64) for w in wua.names} if wua is not None else {}
         results.append(OptionResult(name, pattern, summary, q, np.asarray(added, dtype=np.float64),
                                     volume_ml(added), inl, pct, met, known, share, spells, wv))
     progress(1.0, "tables")
-    res = SeriesResult(series, curves.regime, np.asarray(curves.ladder_mld, dtype=np.float64), list(units),
-                       list(curves.classes), list(criteria), results, volume_given_ml)
+    res = SeriesResult(series, view.regime, np.asarray(view.ladder_mld, dtype=np.float64), list(units),
+                       list(view.classes), list(criteria), results, volume_given_ml)
     _notes(res)
     res.daily = daily_table(res)
     res.spells = spells_table(res)
@@ -750,14 +887,8 @@ def analyse_series(series: FlowSeries, curves, units, criteria, deliveries, volu
     return res
 
 
-def _in_ladder(curves, q):
-    lo, hi = float(np.min(curves.ladder_mld)), float(np.max(curves.ladder_mld))
-    q = np.asarray(q, dtype=np.float64)
-    return (q >= lo) & (q <= hi)
-
-
 def _notes(res: SeriesResult) -> None:
-    lo, hi = float(res.ladder_mld.min()), float(res.ladder_mld.max())
+    lo, hi = float(res.ladder_mld[0]), float(res.ladder_mld[-1])
     for o in res.options:
         out = int(np.count_nonzero(~o.in_ladder))
         if out:
@@ -765,15 +896,20 @@ def _notes(res: SeriesResult) -> None:
             res.notes.append(
                 f"option '{o.name}': {out} of {res.series.n_days} days lie outside the discharge ladder "
                 f"({lo:.0f} to {hi:.0f} ML/d; {below} below, {out - below} above); their class shares are "
-                "left empty and they count as neither meeting nor failing any target")
+                "left empty and they count as neither meeting nor failing any criterion (they end spells)")
         given = res.volume_given_ml
         if o.pattern == "series" and given is not None and round(o.volume_ml) != round(given):
             res.notes.append(
-                f"alternative series '{o.name}' adds {o.volume_ml:.0f} ML, not the {res.volume_given_ml:.0f} ML "
+                f"alternative series '{o.name}' adds {o.volume_ml:.0f} ML, not the {given:.0f} ML "
                 "given as the environmental water volume")
         if o.pattern == "series" and np.any(o.added_mld < 0):
             res.notes.append(f"alternative series '{o.name}' is below the base series on "
                              f"{int(np.count_nonzero(o.added_mld < 0))} days; its volume is the net sum")
+        for w, v in o.wua.items():
+            bad = int(np.count_nonzero(~np.isfinite(v) & o.in_ladder))
+            if bad:
+                res.notes.append(f"option '{o.name}': {w} is empty on {bad} days inside the class-share ladder "
+                                 "but outside the runs of the WUA table")
 
 
 def daily_table(res: SeriesResult) -> dict:
@@ -789,21 +925,23 @@ def daily_table(res: SeriesResult) -> dict:
     cols["in_ladder"] = np.concatenate([o.in_ladder for o in res.options])
     for u in res.units:
         for c in res.classes:
-            name = f"pct_{field_fragment(unit_label(u))}_{field_fragment(c)}"
-            cols[name] = np.concatenate([o.pct[(tuple(u), c)] for o in res.options])
+            cols[f"pct_{field_fragment(u)}_{field_fragment(c)}"] = np.concatenate([o.pct[(u, c)] for o in res.options])
     for crit in res.criteria:
         cols[f"{crit.key}_pct"] = np.concatenate([o.share[crit.key] for o in res.options])
         cols[f"{crit.key}_met"] = np.concatenate([o.met[crit.key] for o in res.options])
-    if res.options and res.options[0].wua:
-        for wname in res.options[0].wua:
-            cols[wname] = np.concatenate([o.wua[wname] for o in res.options])
+    for w in (res.options[0].wua if res.options else {}):
+        cols[w] = np.concatenate([o.wua[w] for o in res.options])
     return cols
 
 
+SPELL_COLUMNS = ("option", "criterion", "kind", "unit", "condition", "start", "end", "length_days",
+                 "censored_start", "censored_end", "qualifies", "mean_pct", "min_pct", "max_pct")
+
+
 def spells_table(res: SeriesResult) -> dict:
-    """SPELLS: every target spell and every bloom-risk spell (plus censored short ones)."""
-    rows = {k: [] for k in ("option", "criterion", "kind", "unit", "condition", "start", "end", "length_days",
-                            "censored_start", "censored_end", "qualifies", "mean_pct", "max_pct", "min_pct")}
+    """SPELLS: every target spell; every bloom-risk spell of at least the minimum length, plus
+    shorter ones that are censored (they may be longer than the record shows; qualifies = False)."""
+    rows = {k: [] for k in SPELL_COLUMNS}
     dates = res.series.dates
     for o in res.options:
         for crit in res.criteria:
@@ -815,7 +953,7 @@ def spells_table(res: SeriesResult) -> dict:
                 rows["option"].append(o.name)
                 rows["criterion"].append(crit.key)
                 rows["kind"].append(crit.kind)
-                rows["unit"].append(unit_label(crit.unit))
+                rows["unit"].append(crit.unit)
                 rows["condition"].append(crit.text)
                 rows["start"].append(iso(dates[a]))
                 rows["end"].append(iso(dates[b]))
@@ -824,11 +962,11 @@ def spells_table(res: SeriesResult) -> dict:
                 rows["censored_end"].append(bool(ce))
                 rows["qualifies"].append(bool(b - a + 1 >= crit.min_days))
                 rows["mean_pct"].append(float(np.mean(seg)))
-                rows["max_pct"].append(float(np.max(seg)))
                 rows["min_pct"].append(float(np.min(seg)))
+                rows["max_pct"].append(float(np.max(seg)))
     out = {}
     for k, v in rows.items():
-        if k in ("length_days",):
+        if k == "length_days":
             out[k] = np.asarray(v, dtype=np.int64)
         elif k in ("censored_start", "censored_end", "qualifies"):
             out[k] = np.asarray(v, dtype=bool)
@@ -840,41 +978,40 @@ def spells_table(res: SeriesResult) -> dict:
 
 
 def options_table(res: SeriesResult) -> dict:
-    """OPTIONS: one row per option (base first) with volume, days met, spells, bloom risk."""
+    """OPTIONS: one row per option (base first): volume, days met, spells, bloom-risk spells."""
     base = res.options[0]
+    opts = res.options
     cols = {
-        "option": [o.name for o in res.options],
-        "pattern": [o.pattern for o in res.options],
-        "delivery": [o.summary for o in res.options],
-        "volume_ml": np.array([o.volume_ml for o in res.options]),
+        "option": [o.name for o in opts],
+        "pattern": [o.pattern for o in opts],
+        "delivery": [o.summary for o in opts],
+        "volume_ml": np.array([o.volume_ml for o in opts]),
         "volume_given_ml": np.array([np.nan if (o.pattern == "base" or res.volume_given_ml is None)
-                                     else res.volume_given_ml for o in res.options]),
-        "added_peak_mld": np.array([float(np.max(o.added_mld)) if o.added_mld.size else 0.0 for o in res.options]),
+                                     else res.volume_given_ml for o in opts]),
+        "added_peak_mld": np.array([float(np.max(o.added_mld)) if o.added_mld.size else 0.0 for o in opts]),
     }
     first, last = [], []
-    for o in res.options:
+    for o in opts:
         nz = np.nonzero(o.added_mld != 0)[0]
         first.append(iso(res.series.dates[nz[0]]) if nz.size else "")
         last.append(iso(res.series.dates[nz[-1]]) if nz.size else "")
     cols["delivery_start"] = first
     cols["delivery_end"] = last
-    cols["days"] = np.full(len(res.options), res.series.n_days, dtype=np.int64)
-    cols["outside_ladder_days"] = np.array([int(np.count_nonzero(~o.in_ladder)) for o in res.options], dtype=np.int64)
+    cols["record_days"] = np.full(len(opts), res.series.n_days, dtype=np.int64)
+    cols["outside_ladder_days"] = np.array([int(np.count_nonzero(~o.in_ladder)) for o in opts], dtype=np.int64)
     for crit in res.targets:
-        met = np.array([int(np.count_nonzero(o.met[crit.key])) for o in res.options], dtype=np.int64)
+        met = np.array([int(np.count_nonzero(o.met[crit.key])) for o in opts], dtype=np.int64)
         cols[f"{crit.key}_met_days"] = met
         cols[f"{crit.key}_gain_days"] = met - int(np.count_nonzero(base.met[crit.key]))
-        cols[f"{crit.key}_spells"] = np.array([len(o.spells[crit.key]) for o in res.options], dtype=np.int64)
+        cols[f"{crit.key}_spells"] = np.array([len(o.spells[crit.key]) for o in opts], dtype=np.int64)
         cols[f"{crit.key}_longest_days"] = np.array(
-            [int(o.spells[crit.key].length.max()) if len(o.spells[crit.key]) else 0 for o in res.options],
-            dtype=np.int64)
+            [int(o.spells[crit.key].length.max()) if len(o.spells[crit.key]) else 0 for o in opts], dtype=np.int64)
     for crit in res.blooms:
-        q = [o.qualifying(crit) for o in res.options]
+        q = [o.qualifying(crit) for o in opts]
         cols[f"{crit.key}_spells"] = np.array([len(s) for s in q], dtype=np.int64)
         cols[f"{crit.key}_days"] = np.array([int(s.length.sum()) for s in q], dtype=np.int64)
-        cols[f"{crit.key}_longest_days"] = np.array([int(s.length.max()) if len(s) else 0 for s in q],
-                                                   dtype=np.int64)
-    for wname in (res.options[0].wua if res.options else {}):
-        cols[f"mean_{wname}"] = np.array([float(np.nanmean(o.wua[wname])) if np.any(np.isfinite(o.wua[wname]))
-                                          else np.nan for o in res.options])
+        cols[f"{crit.key}_longest_days"] = np.array([int(s.length.max()) if len(s) else 0 for s in q], dtype=np.int64)
+    for w in (opts[0].wua if opts else {}):
+        cols[f"mean_{w}"] = np.array([float(np.nanmean(o.wua[w])) if np.any(np.isfinite(o.wua[w])) else np.nan
+                                      for o in opts])
     return cols

@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..core.classes import FALLBACK_COLOURS, velocity_preset
-from ..core.series import iso, unit_label
+from ..core.series import iso
 from . import charts
 from .report import Report
 
@@ -101,7 +101,7 @@ def class_shares(res, unit):
         ax = axes[k // ncols][k % ncols]
         base = np.zeros(len(t))
         for c in res.classes:
-            v = o.pct[(tuple(unit), c)]
+            v = o.pct[(unit, c)]
             top = base + np.nan_to_num(v)
             ok = np.isfinite(v)
             ax.fill_between(t, base, top, where=ok, color=colours[c], linewidth=0, label=c, step="mid")
@@ -116,7 +116,7 @@ def class_shares(res, unit):
     h, lab = axes[0][0].get_legend_handles_labels()
     axes[0][ncols - 1].legend(h[::-1], lab[::-1], loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False,
                               fontsize=8)
-    fig.suptitle(f"Class shares through time — {unit_label(unit)}", x=0.01, ha="left", fontsize=10)
+    fig.suptitle(f"Class shares through time — {unit}", x=0.01, ha="left", fontsize=10)
     return fig
 
 
@@ -200,7 +200,7 @@ def build_report(res, inputs: list, title_suffix: str = "") -> Report:
                 "Share of each class in the unit's wet area on each day, interpolated between the runs. "
                 "Hatched grey: days outside the discharge ladder (not evaluated).")
     for u in res.units:
-        rep.figure(class_shares(res, u), caption=f"Class shares through time, {unit_label(u)}")
+        rep.figure(class_shares(res, u), caption=f"Class shares through time, {u}")
     rep.section("Spells", "Every spell meeting a target, and every bloom-risk spell (censored spells shorter "
                 "than the minimum are listed with qualifies = no). A spell touching the start or end of the "
                 "record, or a day outside the ladder, is censored: it may be longer than shown.")

@@ -1,0 +1,78 @@
+"""Demo: habitat through time on the invented daily flow year, with two ways to deliver 30 GL.
+
+Needs the invented flow year (sample_gis/generated/daily_flows.csv) and flowhabitat's CURVES table
+written by an earlier demo step (found in the demo output folder). Without either it says so and
+skips, rather than inventing curves.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numpy as np
+
+TITLE = "Habitat through time: a flow year and two ways to deliver 30 GL (habitatseries)"
+
+VOLUME_GL = 30.0
+TARGETS = "lower: moderate+fast >= 30%\nreach: very slow < 40%"
+
+
+def _find_curves(out: Path):
+    """flowhabitat's CURVES output from an earlier step: a GeoPackage or CSV named *curves*."""
+    found = sorted(p for ext in ("gpkg", "csv") for p in out.rglob(f"*curves*.{ext}")
+                   if "habitatseries" not in p.parts)
+    return found[0] if found else None
+
+
+def _options(flows_csv: Path) -> str:
+    """Two delivery options placed on the invented year: a spring pulse three months in, and the
+    recession after the year's highest flow held up, falling at most 2 % a day."""
+    root = Path(__file__).resolve().parents[2]
+    if str(root) not in sys.path:
+        sys.path.insert(0, str(root))
+    from plugin.core.series import iso, read_flow_series
+
+    s = read_flow_series(flows_csv.read_text(encoding="utf-8-sig"))
+    pulse_start = s.start + np.timedelta64(min(92, s.n_days // 4), "D")
+    top = int(np.argmax(s.q_mld))
+    if top > s.n_days - 60:  # keep room for the recession before the end of the record
+        top = int(np.argmax(s.q_mld[: max(1, s.n_days - 60)]))
+    return (f"spring pulse: pulse start={iso(pulse_start)} duration=7 ramp_up=3 ramp_down=10\n"
+            f"slow recession: recession start={iso(s.dates[top])} fall=2")
+
+
+def run(demo):
+    flows = demo.sample / "daily_flows.csv"
+    if not flows.exists():
+        demo.log(f"  skipped: the invented flow year {flows} is not there (run `make sample`)")
+        return []
+    curves = _find_curves(demo.out)
+    if curves is None:
+        demo.log("  skipped: no flowhabitat CURVES table in the demo output yet (the flowhabitat step writes "
+                 "it; habitatseries needs it and never invents curves)")
+        return []
+    demo.log(f"  curves: {curves}")
+    out = {
+        "DAILY": demo.path("habitatseries", "daily.gpkg"),
+        "SPELLS": demo.path("habitatseries", "spells.gpkg"),
+        "OPTIONS": demo.path("habitatseries", "options.gpkg"),
+        "REPORT": demo.path("habitatseries", "report.html"),
+    }
+    res = demo.run("habitatseries", {
+        "CURVES": str(curves),
+        "REGIME": "weir",
+        "FLOWS": str(flows),
+        "TARGETS": TARGETS,
+        "BLOOM_CLASSES": "very slow",
+        "BLOOM_SHARE": 50.0,
+        "BLOOM_MIN_DAYS": 5,
+        "ENV_VOLUME": VOLUME_GL,
+        "VOLUME_UNIT": 1,  # GL
+        "DELIVERY": _options(flows),
+        **out,
+    })
+    return [("Habitat through time — report", res["REPORT"]),
+            ("Options compared (OPTIONS)", res["OPTIONS"]),
+            ("Spells (SPELLS)", res["SPELLS"]),
+            ("Daily habitat (DAILY)", res["DAILY"])]

@@ -19,8 +19,9 @@ from qgis.core import (
 from ..core import series as core
 from ..core.curves import METHOD, FlowHabitatCurves, parse_targets
 from ..gis import outputs
-from ..gis.seriesinput import read_text_file, table_columns
+from ..gis.seriesinput import read_text_file
 from ..gis.seriesreport import build_report
+from ..gis.tableinput import table_columns
 from .base import ChannelHabitatAlgorithm
 
 FLOW_UNITS = ("", "ML/d", "m3/s")
@@ -154,7 +155,7 @@ class HabitatSeries(ChannelHabitatAlgorithm):
         progress = self.progress(feedback)
         # -- the curves of one regime, the units, targets and bloom criteria
         curves = FlowHabitatCurves.from_table(
-            table_columns(self.parameterAsSource(parameters, "CURVES", context), "CURVES"), "CURVES")
+            table_columns(self.parameterAsSource(parameters, "CURVES", context), parameter="CURVES"), "CURVES")
         view = core.CurveView(curves, self.parameterAsString(parameters, "REGIME", context))
         units = view.resolve_units(self.parameterAsString(parameters, "ZONES", context))
         zone_names = [u.unit for u in curves.units if u.scope == "zone"]
@@ -185,7 +186,7 @@ class HabitatSeries(ChannelHabitatAlgorithm):
         wua = None
         if parameters.get("WUA"):
             wua = core.WuaCurves.from_table(
-                table_columns(self.parameterAsSource(parameters, "WUA", context), "WUA"), view.regime, units)
+                table_columns(self.parameterAsSource(parameters, "WUA", context), parameter="WUA"), view.regime, units)
         # -- compute everything, then the report, then write
         res = core.analyse_series(series, view, units, criteria, deliveries, volume if volume > 0 else None,
                                   wua, progress.sub(0.0, 0.7))

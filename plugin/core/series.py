@@ -889,6 +889,9 @@ def analyse_series(series: FlowSeries, view: CurveView, units, criteria, deliver
 
 def _notes(res: SeriesResult) -> None:
     lo, hi = float(res.ladder_mld[0]), float(res.ladder_mld[-1])
+    if res.volume_given_ml and not any(o.pattern in PATTERNS for o in res.options):
+        res.notes.append(f"an environmental water volume ({res.volume_given_ml:.0f} ML) was given but no delivery "
+                         "option uses it (DELIVERY is empty)")
     for o in res.options:
         out = int(np.count_nonzero(~o.in_ladder))
         if out:

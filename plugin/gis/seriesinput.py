@@ -1,24 +1,10 @@
-"""Inputs of habitatseries: table layers (CURVES, WUA) as column dicts, and the flow series file."""
+"""Inputs of habitatseries: the flow series file (tables are read with gis/tableinput.py)."""
 
 from __future__ import annotations
 
 import os
 
 from ..core.errors import ChannelHabitatError
-
-
-def table_columns(source, parameter: str) -> dict:
-    """A feature source (a table layer, a GeoPackage table or a CSV) -> {field name: [values]}.
-
-    Values are passed as QGIS gives them (numbers, text or None); the core parses them."""
-    if source is None:
-        raise ChannelHabitatError("the table could not be opened", parameter)
-    names = [f.name() for f in source.fields()]
-    cols = {n: [] for n in names}
-    for feat in source.getFeatures():
-        for n, v in zip(names, feat.attributes()):
-            cols[n].append(None if v is None or (hasattr(v, "isNull") and v.isNull()) else v)
-    return cols
 
 
 def read_text_file(path: str, parameter: str) -> str:

@@ -273,9 +273,9 @@ def suitability_from_rows(rows, parameter: str = PARAMETER, lines=None,
             for a, b in zip(pts, pts[1:]):
                 if not b[0] > a[0]:
                     raise ChannelHabitatError(
-                        f"{name} row {b[2]}: {var} value {b[4]:g} does not increase on row {a[2]} ({a[4]:g}) in "
-                        f"curve set '{label}'; list each curve's points by increasing value (for a step, use "
-                        "two close values such as 0.30 and 0.301)", parameter)
+                        f"{name} row {b[2]}: {var} value {b[4]:g} is not above the previous point's {a[4]:g} "
+                        f"(row {a[2]}) in curve set '{label}'; values must increase: list each curve's points by "
+                        "increasing value (for a step, use two close values such as 0.30 and 0.301)", parameter)
             curves[var] = SuitabilityCurve(var, np.array([p[0] for p in pts]), np.array([p[1] for p in pts]))
         sets.append(CurveSet(label, curves, set_keys[label], tuple(sources.get(label, ()))))
     return sets

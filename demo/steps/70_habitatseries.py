@@ -26,19 +26,21 @@ def _find_curves(out: Path):
 
 
 def _options(flows_csv: Path) -> str:
-    """Two delivery options placed on the invented year: a spring pulse three months in, and the
-    recession after the year's highest flow held up, falling at most 2 % a day."""
+    """Two delivery options placed on the invented year: a pulse into the lowest 30 days of flow
+    after the first third of the record (breaking a slow-water spell), and the recession after the
+    year's highest flow held up, falling at most 2 % a day."""
     root = Path(__file__).resolve().parents[2]
     if str(root) not in sys.path:
         sys.path.insert(0, str(root))
     from plugin.core.series import iso, read_flow_series
 
     s = read_flow_series(flows_csv.read_text(encoding="utf-8-sig"))
-    pulse_start = s.start + np.timedelta64(min(92, s.n_days // 4), "D")
-    top = int(np.argmax(s.q_mld))
-    if top > s.n_days - 60:  # keep room for the recession before the end of the record
-        top = int(np.argmax(s.q_mld[: max(1, s.n_days - 60)]))
-    return (f"spring pulse: pulse start={iso(pulse_start)} duration=7 ramp_up=3 ramp_down=10\n"
+    n = s.n_days
+    a, b = n // 3, max(n // 3 + 1, n - 60)
+    mean30 = np.convolve(s.q_mld, np.ones(30) / 30.0, mode="valid")
+    low = a + int(np.argmin(mean30[a:b])) if b <= len(mean30) else a
+    top = int(np.argmax(s.q_mld[: max(1, n - 60)]))  # room for the recession before the end
+    return (f"low-flow pulse: pulse start={iso(s.dates[low])} duration=7 ramp_up=3 ramp_down=10\n"
             f"slow recession: recession start={iso(s.dates[top])} fall=2")
 
 

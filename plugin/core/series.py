@@ -892,6 +892,12 @@ def _notes(res: SeriesResult) -> None:
     if res.volume_given_ml and not any(o.pattern in PATTERNS for o in res.options):
         res.notes.append(f"an environmental water volume ({res.volume_given_ml:.0f} ML) was given but no delivery "
                          "option uses it (DELIVERY is empty)")
+    outs = {int(np.count_nonzero(~o.in_ladder)) for o in res.options}
+    if len(outs) > 1:
+        res.notes.append(
+            "the options differ in the number of days outside the discharge ladder, so their day counts are "
+            "taken over different sets of evaluated days: a day brought into the ladder by added water can "
+            "add to the bloom-risk days as well as to the days a target is met (see outside_ladder_days)")
     for o in res.options:
         out = int(np.count_nonzero(~o.in_ladder))
         if out:

@@ -76,6 +76,11 @@ def hydrograph(res):
         lw = 1.6 if o.pattern == "base" else 1.1
         ax.plot(t, o.q_mld, color=cols[o.name], linewidth=lw, label=o.name, zorder=3 if o.pattern == "base" else 2)
     ax.set_yscale("log")
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    ax.yaxis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 3.0, 5.0)))
+    ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:,.0f}"))
+    ax.yaxis.set_minor_formatter(NullFormatter())
     charts.style_axes(ax, None, "discharge (ML/d, log scale)", "Hydrographs")
     h, lab = ax.get_legend_handles_labels()
     ax.legend(h[::-1], lab[::-1], loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False, fontsize=8)

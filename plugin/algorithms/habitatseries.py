@@ -167,7 +167,9 @@ class HabitatSeries(ChannelHabitatAlgorithm):
         bloom_share = self.parameterAsDouble(parameters, "BLOOM_SHARE", context)
         bloom_days = self.parameterAsInt(parameters, "BLOOM_MIN_DAYS", context)
         if bloom_text:
-            criteria += core.bloom_criteria(units, view.resolve_classes(bloom_text, "BLOOM_CLASSES"),
+            criteria += core.bloom_criteria(units, view.resolve_classes(
+                bloom_text, "BLOOM_CLASSES", "; name the very slow class(es) of these curves, or leave "
+                "BLOOM_CLASSES empty to skip the bloom-risk analysis"),
                                             bloom_share, bloom_days)
         # -- the flow series, the volume and the options
         flows_path = self.parameterAsFile(parameters, "FLOWS", context)

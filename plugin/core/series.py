@@ -629,13 +629,13 @@ class CurveView:
                 out.append(key)
         return out
 
-    def resolve_classes(self, text: str, parameter: str) -> tuple:
+    def resolve_classes(self, text: str, parameter: str, hint: str = "") -> tuple:
         """'very slow+slow' -> canonical class names."""
         parts = [p for p in re.split(r"[+,]", text or "") if p.strip()]
         try:
             idx = self.curves.class_indices(parts)
         except ChannelHabitatError as err:
-            raise ChannelHabitatError(str(err), parameter) from None
+            raise ChannelHabitatError(f"{err}{hint}", parameter) from None
         return tuple(self.classes[i] for i in idx)
 
     def inside(self, q_mld) -> np.ndarray:
@@ -857,7 +857,13 @@ def analyse_series(series: FlowSeries, view: CurveView, units, criteria, deliver
             "no day can be evaluated (habitatseries never extrapolates). Check the unit of the series, or add "
             "runs covering these discharges to the scenario table behind the curves", "FLOWS")
     plan = [("base", "base", "the flow series as given", np.zeros(series.n_days))]
+    seen = {"base"}
     for d in deliveries:
+        if d.option.name.casefold() in seen:
+            raise ChannelHabitatError(
+                f"two options are named '{d.option.name}' (delivery options and alternative series columns "
+                "share one list, and 'base' names the series as given); rename one", "DELIVERY")
+        seen.add(d.option.name.casefold())
         plan.append((d.option.name, d.option.pattern, d.summary, d.added_mld))
     results = []
     for k, (name, pattern, summary, added) in enumerate(plan):

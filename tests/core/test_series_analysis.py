@@ -18,6 +18,7 @@ from plugin.core.series import (
     FlowSeries,
     WuaCurves,
     added_flow,
+    alternative_delivery,
     analyse_series,
     bloom_criteria,
     parse_delivery_options,
@@ -229,3 +230,15 @@ def test_wua_interpolated_and_checked():
     res = analyse_series(_series([2000.0, 500.0, 8000.0]), view(), ["lower"], [], [], wua=w)
     np.testing.assert_allclose(res.daily["wua_lower_m2"], [200.0, np.nan, 400.0], rtol=1e-12)
     assert res.table["mean_wua_lower_m2"][0] == pytest.approx(300.0)
+
+
+def test_option_names_unique_across_patterns_and_columns():
+    s = FlowSeries(np.datetime64("2023-07-01") + np.arange(5), np.full(5, 2000.0), {"p": np.full(5, 2100.0)},
+                   ("ML/d",))
+    dels = [added_flow(parse_delivery_options("P: constant start=2023-07-01 days=2")[0], s, 10.0)]
+    dels.append(alternative_delivery("p", s.alternatives["p"], s))
+    with pytest.raises(ChannelHabitatError, match="two options are named 'p'") as e:
+        analyse_series(s, view(), UNITS, [], dels)
+    assert e.value.parameter == "DELIVERY"
+    with pytest.raises(ChannelHabitatError, match="two options are named 'base'"):
+        analyse_series(s, view(), UNITS, [], [alternative_delivery("base", s.alternatives["p"], s)])

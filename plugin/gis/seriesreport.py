@@ -205,7 +205,7 @@ def build_report(res, inputs: list, title_suffix: str = "") -> Report:
                 "Share of each class in the unit's wet area on each day, interpolated between the runs. "
                 "Hatched grey: days outside the discharge ladder (not evaluated).")
     for u in res.units:
-        rep.figure(class_shares(res, u), caption=f"Class shares through time, {u}")
+        rep.figure(class_shares(res, u), caption=f"Class shares through time, {u}", fmt="png")
     rep.section("Spells", "Every spell meeting a target, and every bloom-risk spell (censored spells shorter "
                 "than the minimum are listed with qualifies = no). A spell touching the start or end of the "
                 "record, or a day outside the ladder, is censored: it may be longer than shown.")

@@ -22,7 +22,7 @@ from ..gis.ratingreport import build_report
 from .base import ChannelHabitatAlgorithm
 
 UNITS = ["ML/d", "m3/s"]
-SPACES = ["log", "linear"]
+SPACES = ["log", "linear", "stage"]
 
 
 class FitRating(ChannelHabitatAlgorithm):
@@ -43,7 +43,9 @@ and counted; text that is not a number, and zero or negative discharges, are ref
 given h0 are refused.</li>
 <li><b>FIT_SPACE</b> (advanced): <i>log</i> (default) minimises squared residuals of ln Q, giving equal weight
 to relative errors, so low flows are fitted as closely as high ones; <i>linear</i> minimises squared
-discharge residuals (the largest flows dominate).</li>
+discharge residuals (the largest flows dominate); <i>stage</i> minimises squared stage residuals
+h &minus; (h0 + (Q/C)<sup>1/b</sup>), the rating read as stage for a discharge: choose it when the stage readings
+carry the scatter or when the levels are what you need.</li>
 <li><b>LADDER</b> with <b>LADDER_UNIT</b>: discharges such as <code>3000, 4000, 5000</code>; or
 <b>LADDER_TABLE</b> with <b>LADDER_FIELD</b> (unit from a field name ending in _mld or _m3s, else
 LADDER_UNIT).</li>
@@ -81,8 +83,9 @@ describes the river without its structures; check that the control has not chang
         self.addParameter(QgsProcessingParameterNumber(
             "H0", "Stage of zero flow h0 (m) [empty: estimated]", QgsProcessingParameterNumber.Type.Double,
             optional=True))
-        space = QgsProcessingParameterEnum("FIT_SPACE", "Least squares on", ["ln Q (log space)", "Q (linear space)"],
-                                           defaultValue=0)
+        space = QgsProcessingParameterEnum(
+            "FIT_SPACE", "Least squares on", ["ln Q (log space)", "Q (linear space)", "stage h (for levels)"],
+            defaultValue=0)
         space.setFlags(space.flags() | QgsProcessingParameterDefinition.FlagAdvanced)
         self.addParameter(space)
         self.addParameter(QgsProcessingParameterString(
@@ -185,7 +188,8 @@ describes the river without its structures; check that the control has not chang
                 ("Discharge field", f"{q_f} ({unit})"), ("Records used", fit.n),
                 ("Rows left out (empty)", records.skipped_blank),
                 ("h0", "estimated" if fit.h0_estimated else f"given: {fit.h0:g} m"),
-                ("Least squares on", "ln Q" if space == "log" else "Q"), ("Ladder", ladder_desc),
+                ("Least squares on", {"log": "ln Q", "linear": "Q", "stage": "stage h"}[space]),
+                ("Ladder", ladder_desc),
             ]
             report = build_report(fit, lev, inputs, notes)
 

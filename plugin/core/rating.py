@@ -8,9 +8,17 @@ Fitting space
 By default the fit minimises the squared residuals of ln Q (``fit_space="log"``):
 ln Q = ln C + b ln(h - h0). Errors of stream gaugings grow roughly in proportion to the discharge,
 so equal weight to relative errors is the natural choice, and the low flows - which matter most
-for environmental water - are fitted as closely as the high ones. A fit in discharge itself
-(``fit_space="linear"``, minimising squared Q residuals) is offered; it lets the largest flows
-dominate. (Common practice, no source.)
+for environmental water - are fitted as closely as the high ones. Two other choices are offered:
+
+* ``fit_space="linear"`` minimises squared discharge residuals Q - C (h - h0)^b; the largest
+  flows dominate.
+* ``fit_space="stage"`` minimises squared stage residuals h - (h0 + (Q / C)^(1/b)): the rating
+  read the other way, as the stage for a discharge. Choose it when the stage readings carry the
+  scatter (gaugings on a rising or falling river, a shifting control) or when the purpose is the
+  levels themselves - least squares on stage gives the best prediction of stage from discharge.
+
+(Common practice, no source.) All three give the same curve on exact data; on scattered data they
+differ, and the report says which was used.
 
 Method
 ------
@@ -46,7 +54,9 @@ from scipy.optimize import least_squares, minimize_scalar
 from .errors import ChannelHabitatError
 from .units import m3s_to_mld, mld_to_m3s, normalise_unit
 
-FIT_SPACES = ("log", "linear")
+FIT_SPACES = ("log", "linear", "stage")
+SPACE_TEXT = {"log": "least squares on ln Q", "linear": "least squares on Q",
+              "stage": "least squares on stage h (rating read as stage for discharge)"}
 GAP_RANGE = (1e-4, 1e3)  # search range of min(h) - h0, as multiples of the stage range
 GRID_POINTS = 241
 
@@ -238,22 +248,31 @@ def _profile_h0(h, lnq, parameter: str):
     return hmin - math.exp(lg)
 
 
-def _model(theta, h, space, h0_fixed):
+def _model(theta, h, lnq, space, h0_fixed):
+    """The fitted quantity: ln Q (log), Q (linear) or h (stage)."""
     if h0_fixed is None:
         p0, b, h0 = theta
     else:
         (p0, b), h0 = theta, h0_fixed
+    if space == "stage":
+        return h0 + np.exp((lnq - p0) / b)
     x = h - h0
     if space == "log":
         return p0 + b * np.log(x)
     return p0 * x ** b
 
 
-def _jacobian(theta, h, space, h0_fixed):
+def _jacobian(theta, h, lnq, space, h0_fixed):
     if h0_fixed is None:
         p0, b, h0 = theta
     else:
         (p0, b), h0 = theta, h0_fixed
+    if space == "stage":
+        e = np.exp((lnq - p0) / b)
+        cols = [-e / b, -e * (lnq - p0) / (b * b)]
+        if h0_fixed is None:
+            cols.append(np.ones_like(h))
+        return np.column_stack(cols)
     x = h - h0
     lx = np.log(x)
     if space == "log":
@@ -273,7 +292,7 @@ def fit_rating(records: RatingRecords, h0: float | None = None, fit_space: str =
     """Fit Q = C (h - h0)^b to the records (h0 estimated when None). See the module docstring."""
     space = str(fit_space).strip().lower()
     if space not in FIT_SPACES:
-        raise ChannelHabitatError(f"unknown fitting space '{fit_space}': use log or linear", "FIT_SPACE")
+        raise ChannelHabitatError(f"unknown fitting space '{fit_space}': use log, linear or stage", "FIT_SPACE")
     h, q = records.stage, records.discharge
     n = h.size
     p = 3 if h0 is None else 2
@@ -303,9 +322,9 @@ def fit_rating(records: RatingRecords, h0: float | None = None, fit_space: str =
         raise ChannelHabitatError(
             "the records show discharge falling as stage rises (fitted exponent b <= 0): check that the stage "
             "and discharge fields are the right way round", records_param)
-    if space == "log":
+    if space in ("log", "stage"):
         theta0 = np.array([a, b, h0_start]) if h0 is None else np.array([a, b])
-        target = lnq
+        target = lnq if space == "log" else h
     else:
         theta0 = np.array([math.exp(a), b, h0_start]) if h0 is None else np.array([math.exp(a), b])
         target = q
@@ -313,14 +332,14 @@ def fit_rating(records: RatingRecords, h0: float | None = None, fit_space: str =
     margin = 1e-9 * max(np.ptp(h), 1e-6)
 
     def resid(theta):
-        if h0 is None and theta[2] >= hmin:
+        if h0 is None and space != "stage" and theta[2] >= hmin:
             return np.full(n, 1e6)
-        return _model(theta, h, space, h0) - target
+        return _model(theta, h, lnq, space, h0) - target
 
     def jac(theta):
-        return _jacobian(theta, h, space, h0)
+        return _jacobian(theta, h, lnq, space, h0)
 
-    if space == "log":
+    if space in ("log", "stage"):
         sol = least_squares(resid, theta0, jac=jac, method="lm", xtol=1e-15, ftol=1e-15, gtol=1e-15,
                             max_nfev=2000)
     else:
@@ -336,25 +355,26 @@ def fit_rating(records: RatingRecords, h0: float | None = None, fit_space: str =
         raise ChannelHabitatError(
             "h0 cannot be estimated from these records in a linear-space fit (the best fit puts h0 at the lowest "
             "record). Fit in log space, or give h0", h0_param)
-    r = _model(theta, h, space, h0) - target
+    r = _model(theta, h, lnq, space, h0) - target
     ssr = float(r @ r)
     dof = n - p
     s2 = ssr / dof
-    J = _jacobian(theta, h, space, h0)
+    J = _jacobian(theta, h, lnq, space, h0)
     try:
         cov = s2 * np.linalg.inv(J.T @ J)
     except np.linalg.LinAlgError:
         cov = np.full((p, p), np.nan)
         notes.append("the parameters are not separately determined by these records: no standard errors")
-    names = (("lnC" if space == "log" else "C"), "b") + (("h0",) if h0 is None else ())
-    c = math.exp(theta[0]) if space == "log" else float(theta[0])
+    logc = space in ("log", "stage")
+    names = (("lnC" if logc else "C"), "b") + (("h0",) if h0 is None else ())
+    c = math.exp(theta[0]) if logc else float(theta[0])
     bb = float(theta[1])
     hh0 = float(theta[2]) if h0 is None else h0
     sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
     tq = float(sps.t.ppf(0.975, dof))
-    se = {"C": c * sd[0] if space == "log" else sd[0], "b": sd[1], "h0": sd[2] if h0 is None else math.nan}
+    se = {"C": c * sd[0] if logc else sd[0], "b": sd[1], "h0": sd[2] if h0 is None else math.nan}
     ci = {
-        "C": (math.exp(theta[0] - tq * sd[0]), math.exp(theta[0] + tq * sd[0])) if space == "log"
+        "C": (math.exp(theta[0] - tq * sd[0]), math.exp(theta[0] + tq * sd[0])) if logc
         else (c - tq * sd[0], c + tq * sd[0]),
         "b": (bb - tq * sd[1], bb + tq * sd[1]),
         "h0": (hh0 - tq * sd[2], hh0 + tq * sd[2]) if h0 is None else (math.nan, math.nan),
@@ -362,6 +382,9 @@ def fit_rating(records: RatingRecords, h0: float | None = None, fit_space: str =
     fit = RatingFit(c, bb, hh0, records.unit, h0 is None, space, names, np.asarray(theta, float), cov,
                     se, ci, records, notes=notes)
     fit.stats = _statistics(fit, r, target, s2, tq)
+    if space == "stage" and h0 is None and hh0 >= h.min():
+        notes.append(f"the fitted h0 ({hh0:.3f} m) is not below the lowest recorded stage ({h.min():.3f} m): records "
+                     "there would have no flow on this rating")
     if n < 10:
         notes.append(f"only {n} records: the standard errors are rough")
     if h0 is None and abs(_corr(cov, 1, 2)) > 0.98:
@@ -382,18 +405,20 @@ def _statistics(fit: RatingFit, r, target, s2, tq) -> dict:
     q, h = rec.discharge, rec.stage
     qf = fit.discharge_at(h)
     res_q = q - qf
-    res_pct = 100.0 * res_q / qf
+    with np.errstate(divide="ignore", invalid="ignore"):
+        res_pct = 100.0 * res_q / qf
     res_h = h - fit.stage_at(q)
     sst = float(np.sum((target - target.mean()) ** 2))
     sst_q = float(np.sum((q - q.mean()) ** 2))
     u = fit.unit
-    space_unit = "ln(Q)" if fit.fit_space == "log" else u
+    space_unit = {"log": "ln(Q)", "linear": u, "stage": "m"}[fit.fit_space]
+    space_name = {"log": "ln Q", "linear": "Q", "stage": "h"}[fit.fit_space]
     st = {
         "n_records": (fit.n, "", "records used in the fit"),
         "n_skipped": (rec.skipped_blank, "", "rows left out because the stage or discharge was empty"),
         "dof": (fit.dof, "", "degrees of freedom (records minus fitted parameters)"),
         "r2": (1.0 - float(r @ r) / sst if sst > 0 else math.nan, "",
-               f"coefficient of determination in the fitting space ({'ln Q' if fit.fit_space == 'log' else 'Q'})"),
+               f"coefficient of determination in the fitting space ({space_name})"),
         "r2_discharge": (1.0 - float(res_q @ res_q) / sst_q if sst_q > 0 else math.nan, "",
                          "coefficient of determination of Q itself"),
         "residual_se": (math.sqrt(s2), space_unit,
@@ -426,9 +451,11 @@ def residuals(fit: RatingFit) -> dict:
     rec = fit.records
     qf = fit.discharge_at(rec.stage)
     hf = fit.stage_at(rec.discharge)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pct = 100.0 * (rec.discharge - qf) / qf
     return {
         "row": rec.rows, "stage_m": rec.stage, "q_obs": rec.discharge, "q_rating": qf,
-        "residual_q": rec.discharge - qf, "residual_pct": 100.0 * (rec.discharge - qf) / qf,
+        "residual_q": rec.discharge - qf, "residual_pct": pct,
         "stage_rating_m": hf, "residual_stage_m": rec.stage - hf,
     }
 
@@ -449,8 +476,7 @@ def rating_table(fit: RatingFit) -> dict:
                  "stage of zero flow h0, " + ("estimated" if fit.h0_estimated else "given (not fitted)")))
     for name, (value, unit, desc) in fit.stats.items():
         rows.append((name, float(value), math.nan, math.nan, math.nan, unit, desc))
-    rows.append(("fit_space", math.nan, math.nan, math.nan, math.nan, "",
-                 "least squares on ln Q" if fit.fit_space == "log" else "least squares on Q"))
+    rows.append(("fit_space", math.nan, math.nan, math.nan, math.nan, "", SPACE_TEXT[fit.fit_space]))
     cols = ("parameter", "value", "std_error", "ci95_low", "ci95_high", "unit", "description")
     out = {c: [r[i] for r in rows] for i, c in enumerate(cols)}
     for c in ("value", "std_error", "ci95_low", "ci95_high"):

@@ -66,8 +66,10 @@ def build_report(fit: rt.RatingFit, lev: dict, inputs: list, notes: list) -> Rep
     rep = Report("Stage-discharge rating", algorithm="fitrating", subtitle=fit.equation)
     rep.summary(inputs, heading="Run")
     rep.section("Rating", "Q = C (h - h0)^b fitted by nonlinear least squares "
-                + ("on ln Q (equal weight to relative errors)." if fit.fit_space == "log"
-                   else "on Q (the largest flows weigh most).")
+                + {"log": "on ln Q (equal weight to relative errors).",
+                   "linear": "on Q (the largest flows weigh most).",
+                   "stage": "on stage: h = h0 + (Q / C)^(1/b) (the best prediction of stage from discharge)."
+                   }[fit.fit_space]
                 + (" h0 was estimated from the records." if fit.h0_estimated else " h0 was given, not fitted."))
     rep.figure(rating_figure(fit, lev), caption="Records, fitted rating and the stage for each discharge of the "
                "ladder. Open diamonds lie outside the recorded discharges: the rating is extrapolated there.")

@@ -30,7 +30,7 @@ def _lin_model(h, c, b, h0):
     (3000.0, 1.45, 0.0, 0.3, 6.0, "ML/d"),
     (0.8, 3.1, -2.5, -2.2, 1.0, "m3/s"),
 ])
-@pytest.mark.parametrize("space", ["log", "linear"])
+@pytest.mark.parametrize("space", ["log", "linear", "stage"])
 def test_recovers_known_parameters_from_exact_data(c, b, h0, lo, hi, unit, space):
     # Source: exact data from the model itself (common practice, no source).
     h = np.linspace(lo, hi, 30)
@@ -92,6 +92,26 @@ def test_linear_space_fit_agrees_with_curve_fit(seed):
     assert fit.se["C"] == pytest.approx(se[0], rel=1e-3)
     assert fit.se["b"] == pytest.approx(se[1], rel=1e-3)
     assert fit.se["h0"] == pytest.approx(se[2], rel=1e-3)
+
+
+@pytest.mark.parametrize("seed", [11, 14])
+def test_stage_space_fit_agrees_with_curve_fit(seed):
+    # Source: scipy.optimize.curve_fit on h = h0 + (Q / C)^(1/b) (reference library).
+    rng = np.random.default_rng(seed)
+    q = np.exp(rng.uniform(np.log(1200.0), np.log(50000.0), 60))
+    h = 40.2 + (q / 1210.0) ** (1 / 2.1) + rng.normal(0.0, 0.06, q.size)  # scatter in stage
+    fit = fit_rating(records_from_values(h, q, "ML/d"), fit_space="stage")
+    p, pcov = curve_fit(lambda qq, a, b, h0: h0 + np.exp((np.log(qq) - a) / b), q, h, p0=[7.0, 2.0, 40.0])
+    se = np.sqrt(np.diag(pcov))
+    assert np.log(fit.c) == pytest.approx(p[0], rel=1e-6)
+    assert fit.b == pytest.approx(p[1], rel=1e-6)
+    assert fit.h0 == pytest.approx(p[2], abs=1e-6)
+    assert fit.se["C"] == pytest.approx(fit.c * se[0], rel=1e-4)
+    assert fit.se["b"] == pytest.approx(se[1], rel=1e-4)
+    assert fit.se["h0"] == pytest.approx(se[2], rel=1e-4)
+    r = h - (p[2] + np.exp((np.log(q) - p[0]) / p[1]))
+    assert fit.stats["residual_se"][0] == pytest.approx(np.sqrt(r @ r / (q.size - 3)), rel=1e-6)
+    assert fit.stats["rmse_stage_m"][0] == pytest.approx(np.sqrt(np.mean(r ** 2)), rel=1e-6)
 
 
 def test_given_h0_agrees_with_curve_fit():

@@ -31,6 +31,7 @@ import numpy as np
 from osgeo import gdal
 from qgis.core import (
     QgsCategorizedSymbolRenderer,
+    QgsColorRampLegendNodeSettings,
     QgsColorRampShader,
     QgsFeature,
     QgsFeatureRequest,
@@ -366,12 +367,16 @@ def style_change_raster(layer: QgsRasterLayer, limit: float | None = None, unit:
     shader = QgsColorRampShader(-limit, limit)
     shader.setColorRampType(QgsColorRampShader.Interpolated)
     vals = np.linspace(-limit, limit, len(CHANGE_RAMP))
-    labels = [f"{v:+.2g} {unit}" if abs(v) > 1e-12 else f"0 {unit}" for v in vals]
+    labels = [f"{v:+.2g} {unit}".replace("-", "−") if abs(v) > 1e-12 else f"0 {unit} (no change)"
+              for v in vals]
     labels[0] += " (slower)"
     labels[-1] += " (faster)"
     shader.setColorRampItemList([QgsColorRampShader.ColorRampItem(float(v), QColor(c), lab)
                                  for v, c, lab in zip(vals, CHANGE_RAMP, labels)])
     shader.setClip(False)
+    legend = QgsColorRampLegendNodeSettings()
+    legend.setUseContinuousLegend(False)  # one row per ramp stop, with the labels above
+    shader.setLegendSettings(legend)
     rs = QgsRasterShader()
     rs.setRasterShaderFunction(shader)
     layer.setRenderer(QgsSingleBandPseudoColorRenderer(layer.dataProvider(), 1, rs))

@@ -26,7 +26,7 @@ import numpy as np
 from . import stats
 from .classes import ClassScheme
 from .errors import ChannelHabitatError, as_progress
-from .field import HydraulicField
+from .field import GridSupport, HydraulicField
 from .reach import Reach, locate_field
 
 PROFILE_BIN_CHOICES_M = (10.0, 20.0, 25.0, 50.0, 100.0, 200.0, 250.0, 500.0, 1000.0, 2000.0, 2500.0, 5000.0)
@@ -252,3 +252,150 @@ def chainage_profile(fld: HydraulicField, reach: Reach, chainage, codes, scheme:
     t = stats.summarise_groupings(fld.speed, fld.depth, fld.area, codes, [(b, len(edges) - 1)], scheme.names,
                                   fld.weight_unit_m2)[0]
     return profile_table(edges, t, scheme)
+
+
+# ----------------------------------------------------------------------------------------------
+# Helpers for algorithms that map one run (kept here so algorithm files stay recipes)
+# ----------------------------------------------------------------------------------------------
+
+def _crs(wkt: str):
+    from pyproj import CRS
+
+    return CRS.from_wkt(wkt)
+
+
+def crs_name(wkt: str) -> str:
+    if not wkt:
+        return "unknown"
+    try:
+        c = _crs(wkt)
+        code = c.to_epsg(min_confidence=70)
+        return f"{c.name} (EPSG:{code})" if code else c.name
+    except Exception:  # pragma: no cover - unreadable CRS
+        return "unreadable CRS"
+
+
+def reach_in_crs(reach: Reach, crs_wkt: str):
+    """(reach, note): the reach in ``crs_wkt`` -- the same object when the CRS already match (or one
+    is unknown), else a copy with the axis vertices and any segment/zone polygons reprojected (pyproj,
+    x/y order). Vertex chainages are kept: they define the reach."""
+    axis = reach.axis
+    if not crs_wkt or not axis.crs_wkt:
+        return reach, None
+    src, dst = _crs(axis.crs_wkt), _crs(crs_wkt)
+    if src.equals(dst, ignore_axis_order=True):
+        return reach, None
+    import copy
+
+    from pyproj import Transformer
+
+    tr = Transformer.from_crs(src, dst, always_xy=True)
+    x, y = tr.transform(axis.x, axis.y)
+    if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
+        raise ChannelHabitatError(f"the centreline cannot be reprojected from {src.name} to {dst.name}",
+                                  "CENTRELINE")
+    from .reach import ReachAxis
+
+    new_axis = ReachAxis(x, y, crs_wkt, datum_m=axis.datum_m, method=axis.method, chainage=axis.chainage)
+    out = copy.copy(reach)
+    out.axis = new_axis
+
+    def move(geoms):
+        if geoms is None:
+            return None
+        import shapely
+
+        return [None if g is None else shapely.transform(g, lambda xy: np.column_stack(
+            tr.transform(xy[:, 0], xy[:, 1]))) for g in geoms]
+
+    out.segment_polygons = move(getattr(reach, "segment_polygons", None))
+    out.zone_polygons = move(getattr(reach, "zone_polygons", None))
+    note = (f"The centreline is in {crs_name(axis.crs_wkt)} and the run in {crs_name(crs_wkt)}: the centreline "
+            "(and any segment/zone polygons) was reprojected to the run's CRS; its chainages were kept.")
+    return out, note
+
+
+def reach_polygons(reach: Reach):
+    """(segment polygons, zone polygons) the reach brings (e.g. from buildreach), each None when absent
+    or not one per segment/zone."""
+    seg = getattr(reach, "segment_polygons", None)
+    zone = getattr(reach, "zone_polygons", None)
+    if seg is not None and len(seg) != reach.n_segments:
+        seg = None
+    if zone is not None and len(zone) != reach.n_zones:
+        zone = None
+    return seg, zone
+
+
+def geometry_notes(reach: Reach) -> list:
+    seg, zone = reach_polygons(reach)
+    notes = []
+    if seg is None:
+        notes.append("SEGMENT_STATS polygons are the wet area of each segment in this run (give the buildreach "
+                     "SEGMENTS layer for fixed segment polygons).")
+    if zone is None:
+        notes.append("ZONE_STATS polygons are the wet area of each zone in this run.")
+    return notes
+
+
+def face_table(analysis: RunAnalysis) -> dict:
+    """Per-element columns for a face layer (mesh runs): face, class, class_code, segment (1-based,
+    0 outside the reach), chainage_m, offset_m, depth_m, speed_ms, froude, area_m2."""
+    fld = analysis.field
+    names = np.array([""] + list(analysis.scheme.names), dtype=object)
+    face = getattr(fld.support, "index", np.arange(fld.n))
+    return {
+        "face": np.asarray(face, dtype=np.int64),
+        "class": names[analysis.codes],
+        "class_code": analysis.codes.astype(np.int64),
+        "segment": (analysis.segment + 1).astype(np.int64),
+        "chainage_m": analysis.chainage,
+        "offset_m": analysis.offset,
+        "depth_m": fld.depth.astype(np.float64),
+        "speed_ms": fld.speed.astype(np.float64),
+        "froude": analysis.froude.astype(np.float64),
+        "area_m2": fld.area.astype(np.float64),
+    }
+
+
+def run_summary(analysis: RunAnalysis, src=None, min_patch_area_m2: float = 0.0) -> list:
+    """(label, value[, unit]) rows describing the run for a report."""
+    fld, reach, scheme = analysis.field, analysis.reach, analysis.scheme
+    rows = [("Run", fld.name or (src.label if src is not None else ""))]
+    if src is not None:
+        if src.mesh or fld.support.__class__.__name__ == "MeshSupport":
+            rows.append(("Mesh", src.mesh or "QGIS mesh layer"))
+            rows.append(("Depth group", src.depth_group or "found by name"))
+            if src.u_group:
+                rows.append(("Velocity groups (x, y)", f"{src.u_group}, {src.v_group}"))
+            else:
+                rows.append(("Velocity group", src.velocity_group or "found by name"))
+            rows.append(("Time-step index", src.time_index))
+        else:
+            rows.append(("Depth raster", src.depth))
+            if src.speed:
+                rows.append(("Speed raster", src.speed))
+            else:
+                rows.append(("Velocity rasters (u, v)", f"{src.u}, {src.v}"))
+    rows.append(("CRS", crs_name(fld.crs_wkt)))
+    sup = fld.support
+    if isinstance(sup, GridSupport):
+        rows.append(("Grid", f"{sup.shape[1]} x {sup.shape[0]} cells of {abs(sup.transform[1]):g} x "
+                             f"{abs(sup.transform[5]):g} m"))
+    elif sup is not None:
+        rows.append(("Mesh faces", f"{len(sup.face_nodes)} ({fld.n} wet)"))
+    rows += [("Wet-depth threshold", fld.wet_depth_m, "m"), ("Wet elements", fld.n),
+             ("Wet area inside the reach", float(analysis.reach_stats["wet_area_m2"][0]), "m2")]
+    if analysis.outside_area_m2 > 0:
+        rows.append(("Wet area beyond the axis ends (left out)", analysis.outside_area_m2, "m2"))
+    ax = reach.axis
+    rows.append(("Reach", f"chainage {ax.start_m:,.0f} to {ax.end_m:,.0f} m ({ax.length_m / 1000:.2f} km), "
+                          f"chainage {ax.method}"))
+    e = reach.segment_edges
+    rows.append(("Segments", f"{reach.n_segments} (length {e[1] - e[0]:g} m)" if reach.n_segments else "none"))
+    rows.append(("Zones", ", ".join(f"{n} {a:,.0f}–{b:,.0f} m" for n, a, b in
+                                    zip(reach.zone_names, reach.zone_edges[:-1], reach.zone_edges[1:]))))
+    rows.append(("Class scheme", f"{scheme.name}: {', '.join(scheme.names)}"))
+    rows.append(("Minimum patch area (PATCHES)", min_patch_area_m2 if min_patch_area_m2 > 0 else "none",
+                 "m2" if min_patch_area_m2 > 0 else ""))
+    return rows

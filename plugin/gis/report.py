@@ -133,6 +133,20 @@ def plugin_version() -> str:
     return "?"
 
 
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def default_digits(name: str):
+    """Decimals a column gets unless told: none for chainages and areas (m, m²)."""
+    n = name.lower()
+    if n.endswith("_m2") or n == "length_m" or (n.startswith("chainage") and n.endswith("_m")):
+        return 0
+    return None
+
+
 def write_text_atomic(path, text: str, encoding: str = "utf-8") -> str:
     """Write ``text`` to ``path`` through a temporary file beside it and an atomic rename."""
     path = str(path)
@@ -142,6 +156,7 @@ def write_text_atomic(path, text: str, encoding: str = "utf-8") -> str:
     try:
         with os.fdopen(fd, "w", encoding=encoding) as fh:
             fh.write(text)
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the file the usual permissions
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
@@ -299,7 +314,8 @@ class Report:
                 if k.lower() in ("colour", "color") and isinstance(v, str) and _COLOUR_RE.match(v):
                     cells.append(f'<td><span class="swatch" style="background:{v}"></span>{v}</td>')
                 elif isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
-                    cells.append(f'<td class="num">{html.escape(format_value(v, digits.get(k)))}</td>')
+                    d = digits.get(k, default_digits(k)) if isinstance(v, (float, np.floating)) else None
+                    cells.append(f'<td class="num">{html.escape(format_value(v, d))}</td>')
                 else:
                     cells.append(f"<td>{html.escape(format_value(v))}</td>")
             body.append("<tr>" + "".join(cells) + "</tr>")

@@ -1,0 +1,416 @@
+"""Habitat patches: classified elements -> valid polygons dissolved per class and segment.
+
+Rasters: the class grid is optionally sieved (GDAL SieveFilter, 4-connected: patches smaller than the
+minimum area merge into their largest neighbouring patch), then every segment's cells are cut into a
+small window around that segment and polygonized there (GDAL Polygonize, 4-connected, on both cores:
+GDAL releases the GIL). A window holds one segment only, so each polygon belongs to one (segment,
+class) and the dissolve is a plain grouping of polygons into a MultiPolygon per class — no geometric
+union. Windows keep the work proportional to the wet cells, not the grid (a meandering reach fills a
+few percent of its bounding grid).
+
+Meshes: the wet faces become polygons in one vectorised call (shapely.polygons from coordinate
+arrays) and are merged per (segment, class) with shapely's coverage union (faces share edges exactly,
+so the coverage union is exact and fast). The optional sieve works on the face adjacency graph:
+connected same-class patches smaller than the minimum area take the class they share the longest
+boundary with.
+
+Statistics (core/habitat) always use the unsieved classes; the sieve only cleans the map polygons.
+Elements outside the reach (segment -1) are not part of any patch.
+
+No qgis import: GDAL, OGR, numpy, scipy and shapely only.
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+
+import numpy as np
+import shapely
+from osgeo import gdal, gdal_array, ogr
+
+from ..core.errors import as_progress
+from ..core.field import GridSupport, MeshSupport
+
+gdal.UseExceptions()
+ogr.UseExceptions()
+
+
+@dataclass
+class Patches:
+    """One row per (segment, class): ordered ``columns`` and shapely MultiPolygons ``geometries``."""
+
+    columns: dict
+    geometries: list
+    notes: list = field(default_factory=list)
+
+    def __len__(self):
+        return len(self.geometries)
+
+
+# ----------------------------------------------------------------------------------------------
+# Common
+# ----------------------------------------------------------------------------------------------
+
+def _assemble(analysis, rows, notes) -> Patches:
+    """rows: (segment 0-based, code, MultiPolygon, area_m2, n_parts) -> Patches, ordered by segment
+    then class code."""
+    reach = analysis.reach
+    names = analysis.scheme.names
+    rows = sorted(rows, key=lambda r: (r[0], r[1]))
+    seg_wet = np.asarray(analysis.segment_stats["wet_area_m2"], dtype=float)
+    e = reach.segment_edges
+    seg_zone = analysis.segment_stats["zone"]
+    cols = {
+        "class": [names[r[1] - 1] for r in rows],
+        "class_code": np.array([r[1] for r in rows], dtype=np.int64),
+        "segment": np.array([r[0] + 1 for r in rows], dtype=np.int64),
+        "zone": [seg_zone[r[0]] for r in rows],
+        "chainage_from_m": np.array([e[r[0]] for r in rows], dtype=float),
+        "chainage_to_m": np.array([e[r[0] + 1] for r in rows], dtype=float),
+        "area_m2": np.array([r[3] for r in rows], dtype=float),
+        "pct_segment": np.array([100.0 * r[3] / seg_wet[r[0]] if seg_wet[r[0]] > 0 else np.nan for r in rows]),
+        "n_parts": np.array([r[4] for r in rows], dtype=np.int64),
+    }
+    return Patches(cols, [r[2] for r in rows], notes)
+
+
+def _dissolve_parts(polys, labels):
+    """{label: (MultiPolygon, n_parts)} from polygons that share no edge within a label."""
+    out = {}
+    if len(polys) == 0:
+        return out
+    order = np.argsort(labels, kind="stable")
+    labels = labels[order]
+    polys = polys[order]
+    bounds = np.flatnonzero(np.diff(labels)) + 1
+    for chunk, lab in zip(np.split(polys, bounds), labels[np.r_[0, bounds]]):
+        mp = shapely.multipolygons(chunk)
+        if not shapely.is_valid(mp):
+            mp = _polygonal(shapely.make_valid(mp))
+        out[int(lab)] = (mp, len(chunk))
+    return out
+
+
+def _polygonal(geom):
+    """The polygonal part of a geometry as a MultiPolygon (nested collections flattened)."""
+    polys = []
+    for p in shapely.get_parts(geom):
+        t = shapely.get_type_id(p)
+        if t == 3:
+            polys.append(p)
+        elif t in (6, 7):
+            polys.extend(shapely.get_parts(_polygonal(p)))
+    return shapely.multipolygons(polys) if polys else shapely.from_wkt("MULTIPOLYGON EMPTY")
+
+
+# ----------------------------------------------------------------------------------------------
+# Rasters
+# ----------------------------------------------------------------------------------------------
+
+def class_grid(analysis, inside_only: bool = False) -> np.ndarray:
+    """The full (rows, cols) uint8 class grid of a raster run: codes at wet cells, 0 elsewhere."""
+    sup = analysis.field.support
+    rows, cols = sup.shape
+    grid = np.zeros(rows * cols, dtype=np.uint8)
+    codes = analysis.codes
+    if inside_only:
+        codes = np.where(analysis.segment >= 0, codes, 0).astype(np.uint8)
+    grid[sup.index] = codes
+    return grid.reshape(rows, cols)
+
+
+def sieve_grid(grid: np.ndarray, min_cells: int) -> np.ndarray:
+    """GDAL SieveFilter (4-connected) of a uint8 class grid; 0 cells are no data (never merged into,
+    never grow). Patches smaller than ``min_cells`` cells take their largest neighbour's class."""
+    if min_cells <= 1:
+        return grid
+    src = gdal_array.OpenArray(np.ascontiguousarray(grid))
+    band = src.GetRasterBand(1)
+    dst = gdal.GetDriverByName("MEM").Create("", grid.shape[1], grid.shape[0], 1, gdal.GDT_Byte)
+    dband = dst.GetRasterBand(1)
+    gdal.SieveFilter(band, band, dband, int(min_cells), 4)
+    out = dband.ReadAsArray()
+    del band, dband, src, dst
+    return out
+
+
+def _polygonize_window(labels: np.ndarray, transform):
+    """Polygons (shapely array) and their labels for the non-zero cells of a small label array."""
+    ds = gdal_array.OpenArray(labels)
+    ds.SetGeoTransform(transform)
+    band = ds.GetRasterBand(1)
+    ods = ogr.GetDriverByName("Memory").CreateDataSource("patches")
+    lyr = ods.CreateLayer("p", geom_type=ogr.wkbPolygon)
+    lyr.CreateField(ogr.FieldDefn("label", ogr.OFTInteger))
+    gdal.Polygonize(band, band, lyr, 0, [])  # the band is its own mask: 0 = no patch
+    wkb, lab = [], []
+    for batch in lyr.GetArrowStreamAsNumPy(options=["USE_MASKED_ARRAYS=NO"]):
+        wkb.append(batch["wkb_geometry"])
+        lab.append(batch["label"])
+    del lyr, ods, band, ds
+    if not wkb:
+        return np.array([], dtype=object), np.array([], dtype=np.int64)
+    return shapely.from_wkb(np.concatenate(wkb)), np.concatenate(lab).astype(np.int64)
+
+
+def raster_patches(analysis, min_area_m2: float = 0.0, progress=None, threads: int = 2) -> Patches:
+    """Patches of a raster run: polygons per (segment, class), sieved to ``min_area_m2`` first."""
+    progress = as_progress(progress)
+    fld = analysis.field
+    sup = fld.support
+    if not isinstance(sup, GridSupport):
+        raise TypeError("raster_patches needs a raster run")
+    notes = []
+    cell = sup.cell_area
+    codes = analysis.codes
+    min_cells = int(np.ceil(min_area_m2 / cell - 1e-9)) if min_area_m2 > 0 else 0
+    if min_cells > 1:
+        progress(0.0, f"removing patches smaller than {min_area_m2:g} m2 ({min_cells} cells)")
+        sieved = sieve_grid(class_grid(analysis), min_cells)
+        new = sieved.ravel()[sup.index]
+        changed = int(np.count_nonzero(new != codes))
+        notes.append(f"Patches smaller than {min_area_m2:g} m2 ({min_cells} cells) were merged into their "
+                     f"largest neighbour in PATCHES ({changed} cells, {changed * cell:,.0f} m2, changed class); "
+                     "the statistics use the unsieved classes.")
+        codes = new
+        progress.check()
+    seg = analysis.segment
+    n_seg = analysis.reach.n_segments
+    order = np.argsort(np.where(seg >= 0, seg, n_seg).astype(np.int16 if n_seg < 32767 else np.int32),
+                       kind="stable")
+    counts = np.bincount(seg[seg >= 0], minlength=n_seg)
+    ends = np.cumsum(counts)
+    starts = ends - counts
+    rows_, cols_ = np.divmod(sup.index, sup.shape[1])
+    x0, dx, _, y0, _, dy = sup.transform
+
+    def one(k):
+        sel = order[starts[k]:ends[k]]
+        sel = sel[codes[sel] > 0]
+        if sel.size == 0:
+            return k, {}
+        r, c = rows_[sel], cols_[sel]
+        r0, c0 = int(r.min()), int(c.min())
+        lab = np.zeros((int(r.max()) - r0 + 1, int(c.max()) - c0 + 1), dtype=np.uint8)
+        lab[r - r0, c - c0] = codes[sel]
+        polys, labels = _polygonize_window(lab, (x0 + c0 * dx, dx, 0.0, y0 + r0 * dy, 0.0, dy))
+        parts = _dissolve_parts(polys, labels)
+        area = np.bincount(codes[sel], minlength=256) * cell
+        return k, {code: (mp, float(area[code]), n) for code, (mp, n) in parts.items()}
+
+    rows = []
+    todo = [k for k in range(n_seg) if counts[k] > 0]
+    done = 0
+    with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
+        for k, res in pool.map(one, todo):
+            for code, (mp, area, n) in res.items():
+                rows.append((k, code, mp, area, n))
+            done += 1
+            progress(0.2 + 0.8 * done / max(len(todo), 1), "polygonizing habitat patches")
+    return _assemble(analysis, rows, notes)
+
+
+# ----------------------------------------------------------------------------------------------
+# Meshes
+# ----------------------------------------------------------------------------------------------
+
+def face_polygons(support: MeshSupport, faces=None) -> np.ndarray:
+    """Shapely polygons of mesh faces (default: the wet faces in ``support.index``), vectorised."""
+    faces = support.index if faces is None else np.asarray(faces)
+    fn = support.face_nodes[faces]
+    valid = fn >= 0
+    nodes = fn[valid]
+    ring = np.repeat(np.arange(len(faces)), valid.sum(axis=1))
+    coords = np.column_stack([support.node_x[nodes], support.node_y[nodes]])
+    rings = shapely.linearrings(coords, indices=ring)
+    polys = shapely.polygons(rings)
+    # Faces stored clockwise are fine for area and union; orient counter-clockwise for tidy output.
+    return shapely.orient_polygons(polys) if hasattr(shapely, "orient_polygons") else polys
+
+
+def face_adjacency(support: MeshSupport):
+    """(face_a, face_b, edge_length) for every edge shared by two wet elements (element numbers,
+    i.e. positions in ``support.index``)."""
+    fn = support.face_nodes[support.index]
+    n_el, width = fn.shape
+    valid = fn >= 0
+    nn = valid.sum(axis=1)
+    col = np.arange(width)[None, :]
+    nxt = np.take_along_axis(np.where(valid, fn, 0), np.where(col + 1 < nn[:, None], col + 1, 0), axis=1)
+    a = fn[valid]
+    b = nxt[valid]
+    el = np.repeat(np.arange(n_el), nn)
+    lo, hi = np.minimum(a, b), np.maximum(a, b)
+    key = lo.astype(np.int64) * (int(max(hi.max(initial=0), 0)) + 1) + hi
+    order = np.argsort(key, kind="stable")
+    ks = key[order]
+    same = np.flatnonzero(ks[1:] == ks[:-1])
+    fa, fb = el[order[same]], el[order[same + 1]]
+    la, ha = lo[order[same]], hi[order[same]]
+    length = np.hypot(support.node_x[la] - support.node_x[ha], support.node_y[la] - support.node_y[ha])
+    return fa, fb, length
+
+
+def sieve_mesh(codes, area, support: MeshSupport, min_area_m2: float, max_passes: int = 5) -> np.ndarray:
+    """Merge connected same-class patches of faces smaller than ``min_area_m2`` into the class they
+    share the longest boundary with (repeated until nothing changes, at most ``max_passes``)."""
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    codes = np.asarray(codes).copy()
+    n = len(codes)
+    fa, fb, length = face_adjacency(support)
+    for _ in range(max_passes):
+        same = codes[fa] == codes[fb]
+        g = coo_matrix((np.ones(int(same.sum())), (fa[same], fb[same])), shape=(n, n))
+        n_comp, comp = connected_components(g, directed=False)
+        comp_area = np.bincount(comp, weights=area, minlength=n_comp)
+        small = comp_area < min_area_m2
+        diff = ~same
+        # boundary length between each small component and each neighbouring class
+        pairs_c = np.concatenate([comp[fa[diff]], comp[fb[diff]]])
+        pairs_k = np.concatenate([codes[fb[diff]], codes[fa[diff]]]).astype(np.int64)
+        plen = np.concatenate([length[diff], length[diff]])
+        keep = small[pairs_c]
+        if not keep.any():
+            break
+        key = pairs_c[keep].astype(np.int64) * 256 + pairs_k[keep]
+        uk, inv = np.unique(key, return_inverse=True)
+        tot = np.bincount(inv, weights=plen[keep])
+        kc, kk = uk // 256, uk % 256
+        order = np.lexsort((-tot, kc))  # per component, longest boundary first
+        first = np.r_[True, kc[order][1:] != kc[order][:-1]]
+        target = np.zeros(n_comp, dtype=np.int64)
+        target[kc[order][first]] = kk[order][first]
+        move = small[comp] & (target[comp] > 0)
+        if not move.any():
+            break
+        codes[move] = target[comp[move]].astype(codes.dtype)
+    return codes
+
+
+def mesh_patches(analysis, min_area_m2: float = 0.0, progress=None, polygons=None) -> Patches:
+    """Patches of a mesh run: wet faces merged per (segment, class) by coverage union."""
+    progress = as_progress(progress)
+    fld = analysis.field
+    sup = fld.support
+    if not isinstance(sup, MeshSupport):
+        raise TypeError("mesh_patches needs a mesh run")
+    notes = []
+    codes = analysis.codes
+    if min_area_m2 > 0:
+        progress(0.0, f"removing patches smaller than {min_area_m2:g} m2")
+        new = sieve_mesh(codes, fld.area, sup, min_area_m2)
+        changed = new != codes
+        if changed.any():
+            notes.append(f"Patches smaller than {min_area_m2:g} m2 were merged into the neighbouring class "
+                         f"they share the longest boundary with in PATCHES ({int(changed.sum())} faces, "
+                         f"{fld.area[changed].sum():,.0f} m2); the statistics use the unsieved classes.")
+        codes = new
+    progress(0.2, "building face polygons")
+    polys = face_polygons(sup) if polygons is None else polygons
+    seg = analysis.segment
+    ok = (seg >= 0) & (codes > 0)
+    key = seg.astype(np.int64) * 256 + codes
+    sel = np.flatnonzero(ok)
+    order = sel[np.argsort(key[sel], kind="stable")]
+    ks = key[order]
+    bounds = np.flatnonzero(np.diff(ks)) + 1
+    rows = []
+    groups = np.split(order, bounds)
+    for i, grp in enumerate(groups):
+        if grp.size == 0:
+            continue
+        k, code = divmod(int(key[grp[0]]), 256)
+        merged = shapely.coverage_union_all(polys[grp])
+        mp = _polygonal(merged) if shapely.get_type_id(merged) != 6 else merged
+        if not shapely.is_valid(mp):
+            mp = _polygonal(shapely.make_valid(mp))
+        rows.append((k, code, mp, float(fld.area[grp].sum()), int(shapely.get_num_geometries(mp))))
+        if i % 8 == 0:
+            progress(0.3 + 0.7 * i / max(len(groups), 1), "merging faces into habitat patches")
+    return _assemble(analysis, rows, notes)
+
+
+def habitat_patches(analysis, min_area_m2: float = 0.0, progress=None, threads: int = 2,
+                    polygons=None) -> Patches:
+    """Patches for a raster or mesh run (dispatch on the field's support). ``polygons``: the wet
+    face polygons of a mesh run when already built (:func:`face_polygons`)."""
+    if isinstance(analysis.field.support, GridSupport):
+        return raster_patches(analysis, min_area_m2, progress, threads)
+    if isinstance(analysis.field.support, MeshSupport):
+        return mesh_patches(analysis, min_area_m2, progress, polygons=polygons)
+    raise TypeError("the run has no grid or mesh support")
+
+
+# ----------------------------------------------------------------------------------------------
+# Wet footprints of segments and zones (their polygons when the reach brings none)
+# ----------------------------------------------------------------------------------------------
+
+def _union_pieces(pieces, n):
+    """{(group, sub): MultiPolygon} -> list of n geometries (None where empty), coverage union."""
+    out = [None] * n
+    by = {}
+    for (g, _), geom in pieces.items():
+        by.setdefault(g, []).append(geom)
+    for g, geoms in by.items():
+        if not 0 <= g < n:
+            continue
+        u = geoms[0] if len(geoms) == 1 else shapely.coverage_union_all(np.array(geoms, dtype=object))
+        u = u if shapely.get_type_id(u) == 6 else _polygonal(u)
+        if not shapely.is_valid(u):
+            u = _polygonal(shapely.make_valid(u))
+        out[g] = u
+    return out
+
+
+def wet_footprints(analysis, threads: int = 2, polygons=None):
+    """(segment geometries, zone geometries): the wet area of every segment and zone as
+    MultiPolygons (None where dry), from pieces per (segment, zone) -- rasters by windowed
+    polygonizing, meshes by coverage union of faces."""
+    fld = analysis.field
+    seg, zone = analysis.segment, analysis.zone
+    n_seg, n_zone = analysis.reach.n_segments, analysis.reach.n_zones
+    inside = np.flatnonzero(seg >= 0)
+    pieces = {}
+    sup = fld.support
+    if isinstance(sup, GridSupport):
+        order = inside[np.argsort(seg[inside], kind="stable")]
+        counts = np.bincount(seg[inside], minlength=n_seg)
+        ends = np.cumsum(counts)
+        starts = ends - counts
+        rows_, cols_ = np.divmod(sup.index, sup.shape[1])
+        x0, dx, _, y0, _, dy = sup.transform
+
+        def one(k):
+            sel = order[starts[k]:ends[k]]
+            if sel.size == 0:
+                return k, {}
+            r, c = rows_[sel], cols_[sel]
+            r0, c0 = int(r.min()), int(c.min())
+            lab = np.zeros((int(r.max()) - r0 + 1, int(c.max()) - c0 + 1), dtype=np.uint8)
+            lab[r - r0, c - c0] = (zone[sel] + 1).astype(np.uint8)
+            polys, labels = _polygonize_window(lab, (x0 + c0 * dx, dx, 0.0, y0 + r0 * dy, 0.0, dy))
+            return k, {z - 1: mp for z, (mp, _) in _dissolve_parts(polys, labels).items()}
+
+        with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
+            for k, res in pool.map(one, [k for k in range(n_seg) if counts[k] > 0]):
+                for z, mp in res.items():
+                    pieces[(k, z)] = mp
+    elif isinstance(sup, MeshSupport):
+        polys = face_polygons(sup) if polygons is None else polygons
+        key = seg[inside].astype(np.int64) * 65536 + zone[inside]
+        order = np.argsort(key, kind="stable")
+        ks = key[order]
+        bounds = np.flatnonzero(np.diff(ks)) + 1
+        for grp in np.split(inside[order], bounds):
+            if grp.size == 0:
+                continue
+            k, z = int(seg[grp[0]]), int(zone[grp[0]])
+            pieces[(k, z)] = shapely.coverage_union_all(polys[grp])
+    else:
+        raise TypeError("the run has no grid or mesh support")
+    seg_geoms = _union_pieces(pieces, n_seg)
+    zone_geoms = _union_pieces({(z, k): g for (k, z), g in pieces.items()}, n_zone)
+    return seg_geoms, zone_geoms

@@ -56,9 +56,9 @@ def build_report(analysis, inputs, notes=(), title: str = "Habitat map of one ru
     r = analysis.reach_stats
     wet = float(r["wet_area_m2"][0])
     areas = [r[f"area_{stats.field_key(n)}_m2"][0] for n in scheme.names]
+    source = (scheme.source or "user table").rstrip(".")
     rep.section("Classes", f"Scheme '{scheme.name}'. Bounds are lower-inclusive and upper-exclusive; an element "
-                           "takes the first class whose bounds all hold. Source: " + (scheme.source or "user table").rstrip(".")
-                + ".")
+                           f"takes the first class whose bounds all hold. Source: {source}.")
     rep.table(class_legend(scheme, areas, wet), caption="Classes over the whole reach", csv_name="classes")
     rep.section("Whole reach and zones",
                 "Area-weighted statistics of depth-averaged speed (m/s) and depth (m); class shares in % of "

@@ -27,20 +27,24 @@ def _find_curves(out: Path):
 
 def _options(flows_csv: Path) -> str:
     """Two delivery options placed on the invented year: a pulse into the lowest 30 days of flow
-    after the first third of the record (breaking a slow-water spell), and the recession after the
-    year's highest flow held up, falling at most 2 % a day."""
+    starting in summer (December to February: the season of slow-water blooms), and the recession
+    of the highest fresh after the first quarter of the record held up, falling at most 2 % a day."""
     root = Path(__file__).resolve().parents[2]
     if str(root) not in sys.path:
         sys.path.insert(0, str(root))
     from plugin.core.series import iso, read_flow_series
 
     s = read_flow_series(flows_csv.read_text(encoding="utf-8-sig"))
-    n = s.n_days
-    a, b = n // 3, max(n // 3 + 1, n - 60)
-    mean30 = np.convolve(s.q_mld, np.ones(30) / 30.0, mode="valid")
-    low = a + int(np.argmin(mean30[a:b])) if b <= len(mean30) else a
-    top = int(np.argmax(s.q_mld[: max(1, n - 60)]))  # room for the recession before the end
-    return (f"low-flow pulse: pulse start={iso(s.dates[low])} duration=7 ramp_up=3 ramp_down=10\n"
+    n, q = s.n_days, s.q_mld
+    mean30 = np.convolve(q, np.ones(30) / 30.0, mode="valid")  # window starting on each day
+    months = s.dates[: len(mean30)].astype("datetime64[M]").astype(int) % 12 + 1
+    summer = np.flatnonzero(np.isin(months, (12, 1, 2)))
+    cand = summer if summer.size else np.arange(len(mean30))
+    low = int(cand[np.argmin(mean30[cand])])
+    # local peaks (highest within +-3 days) after the first quarter, with 60 days left after them
+    peaks = [i for i in range(n // 4, max(n // 4 + 1, n - 60)) if q[i] == q[max(0, i - 3): i + 4].max()]
+    top = max(peaks, key=lambda i: q[i]) if peaks else int(np.argmax(q))
+    return (f"summer pulse: pulse start={iso(s.dates[low])} duration=7 ramp_up=3 ramp_down=10\n"
             f"slow recession: recession start={iso(s.dates[top])} fall=2")
 
 

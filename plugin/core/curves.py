@@ -450,8 +450,9 @@ class FlowHabitatCurves:
         """The regime's run discharges, ML/d, increasing."""
         return self.regime(regime).q_mld.copy()
 
-    def unit_index(self, unit) -> int:
-        """Index of a scope unit: an int, a ScopeUnit, or its key ('reach', zone name, 'segment N')."""
+    def unit_index(self, unit, parameter: str = "TARGETS") -> int:
+        """Index of a scope unit: an int, a ScopeUnit, or its key ('reach', zone name, 'segment N').
+        An unknown name raises ChannelHabitatError naming ``parameter``."""
         if isinstance(unit, (int, np.integer)):
             return int(unit)
         if isinstance(unit, ScopeUnit):
@@ -460,11 +461,12 @@ class FlowHabitatCurves:
         if i is None:
             raise ChannelHabitatError(f"no unit '{unit}' in the curves (units: reach, zones "
                                       f"{', '.join(u.unit for u in self.units if u.scope == 'zone')}, "
-                                      "or 'segment N')", "TARGETS")
+                                      "or 'segment N')", parameter)
         return i
 
-    def class_indices(self, classes) -> list[int]:
-        """Indices of class names (case and spaces/underscores ignored); None = all classes."""
+    def class_indices(self, classes, parameter: str = "TARGETS") -> list[int]:
+        """Indices of class names (a list, or one text joined by '+'; case and spaces/underscores
+        ignored); None = all classes. An unknown name raises ChannelHabitatError naming ``parameter``."""
         if classes is None:
             return list(range(len(self.class_names)))
         if isinstance(classes, str):
@@ -473,8 +475,8 @@ class FlowHabitatCurves:
         for c in classes:
             i = self._class_lookup.get(_norm(c))
             if i is None:
-                raise ChannelHabitatError(f"no class '{c}' in the curves (classes: {', '.join(self.class_names)})",
-                                          "TARGETS")
+                raise ChannelHabitatError(f"no class '{c.strip()}' in the curves (classes: "
+                                          f"{', '.join(self.class_names)})", parameter)
             idx.append(i)
         return idx
 

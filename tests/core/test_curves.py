@@ -304,3 +304,16 @@ def test_evaluate_targets_along_a_series():
     assert ev["pct"][0, 1] == 20.0 and ev["pct"][1, 1] == 80.0
     assert ev["met"][0].tolist() == [False, False, True, True, False, False]  # 45 % at 10000 ML/d
     assert ev["met"][1].tolist() == [False, True, True, False, False, False]  # b = 100 - a
+
+
+def test_lookups_name_the_callers_parameter():
+    c = _curve(np.linspace(20, 70, LADDER.size))
+    assert c.unit_index("REACH") == 0 and c.class_indices("A + b") == [0, 1]
+    with pytest.raises(ChannelHabitatError, match="no unit 'middle'") as exc:
+        c.unit_index("middle", "ZONES")
+    assert exc.value.parameter == "ZONES"
+    with pytest.raises(ChannelHabitatError, match="no class 'c'") as exc:
+        c.class_indices("a+c", "BLOOM_CLASSES")
+    assert exc.value.parameter == "BLOOM_CLASSES"
+    with pytest.raises(ChannelHabitatError, match="no regime 'natural'"):
+        c.ladder("natural")

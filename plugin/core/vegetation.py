@@ -41,6 +41,7 @@ from .field import GridSupport, HydraulicField, MeshSupport
 from .stats import field_key
 
 DEFAULT_EDGE_DISTANCE_M = 10.0
+CLIP_BLOCK = 8  # quadtree blocks of this many cells (or fewer) carry the polygon clipped to them
 UNCLASSIFIED = "unclassified"
 
 
@@ -131,11 +132,12 @@ class GridElements:
         r1 = min(int(math.ceil(max(ra, rb))), self.rows)
         return r0, r1, c0, c1
 
-    def overlap(self, geom):
+    def overlap(self, geom, areas: bool = True):
         """(element ids, intersection areas) of the cells that meet ``geom`` with positive area.
 
         A quadtree over the window of cells: blocks the polygon covers count whole, blocks it
-        misses are dropped, the rest are split until single cells, which are intersected."""
+        misses are dropped, the rest are split until single cells, which are intersected. With
+        ``areas=False`` single cells are only tested (every cell that meets ``geom``; areas NaN)."""
         r0, r1, c0, c1 = self._window(geom.bounds)
         if r1 <= r0 or c1 <= c0:
             return np.zeros(0, np.int64), np.zeros(0)
@@ -144,17 +146,24 @@ class GridElements:
         br = np.array([r0], dtype=np.int64)
         bc = np.array([c0], dtype=np.int64)
         ids_parts, area_parts = [], []
+        part = None  # per block: geom clipped to the block (from CLIP_BLOCK cells down), for cheap cell cuts
         while True:
             rb1 = np.minimum(br + size, r1)
             cb1 = np.minimum(bc + size, c1)
             keep = (rb1 > br) & (cb1 > bc)
             br, bc, rb1, cb1 = br[keep], bc[keep], rb1[keep], cb1[keep]
+            if part is not None:
+                part = part[keep]
             if br.size == 0:
                 break
             boxes = self._boxes(br, rb1, bc, cb1)
             if size == 1:
-                inter = shapely.area(shapely.intersection(boxes, geom))
-                pos = inter > 0
+                if areas:
+                    inter = shapely.area(shapely.intersection(boxes, geom if part is None else part))
+                    pos = inter > 0
+                else:
+                    pos = shapely.intersects(geom, boxes)
+                    inter = np.full(pos.shape, np.nan)
                 ids_parts.append(br[pos] * self.cols + bc[pos])
                 area_parts.append(np.minimum(inter[pos], self.cell_area))
                 break
@@ -164,10 +173,16 @@ class GridElements:
                 ids = _block_cells(br[inside], rb1[inside], bc[inside], cb1[inside], self.cols)
                 ids_parts.append(ids)
                 area_parts.append(np.full(ids.size, self.cell_area))
+            if areas and part is None and size <= CLIP_BLOCK:
+                part = shapely.intersection(boxes[touching], geom)
+            elif part is not None:
+                part = part[touching]
             half = size // 2
             tr, tc = br[touching], bc[touching]
             br = np.concatenate([tr, tr, tr + half, tr + half])
             bc = np.concatenate([tc, tc + half, tc, tc + half])
+            if part is not None:
+                part = np.concatenate([part, part, part, part])
             size = half
         shapely.destroy_prepared(geom)
         if not ids_parts:
@@ -220,12 +235,16 @@ class MeshElements:
     def candidates(self, geom) -> np.ndarray:
         return np.sort(self._tree.query(geom, predicate="intersects")).astype(np.int64)
 
-    def overlap(self, geom):
+    def overlap(self, geom, areas: bool = True):
         ids = self.candidates(geom)
         if ids.size == 0:
             return ids, np.zeros(0)
         polys = self.polygons(ids)
         shapely.prepare(geom)
+        if not areas:
+            hit = shapely.intersects(geom, polys)
+            shapely.destroy_prepared(geom)
+            return ids[hit], np.full(int(hit.sum()), np.nan)
         inside = shapely.covers(geom, polys)
         area = shapely.area(polys)
         part = ~inside
@@ -367,7 +386,7 @@ class VegetationOverlay:
             ps.append(np.full(ids.size, i, dtype=np.int64))
             pe.append(ids)
             pa.append(area)
-            near.append(elements.overlap(zones[i])[0])
+            near.append(elements.overlap(zones[i], areas=False)[0])
         near_ids = np.unique(np.concatenate(near)) if near else np.zeros(0, np.int64)
         cache = _GeometryCache(elements, np.concatenate(ps), np.concatenate(pe), np.concatenate(pa),
                                near_ids, elements.polygons(near_ids), boundary_pieces(geoms, step), step)

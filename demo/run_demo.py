@@ -75,7 +75,8 @@ def main() -> int:
     Processing.initialize()
     from plugin.provider import ChannelHabitatProvider
 
-    QgsApplication.processingRegistry().addProvider(ChannelHabitatProvider())
+    provider = ChannelHabitatProvider()  # keep a reference: Processing does not own it from Python
+    QgsApplication.processingRegistry().addProvider(provider)
 
     demo = Demo(sample, out)
     sections = []

@@ -21,8 +21,11 @@ class ChannelHabitatPlugin:
     # Called by QGIS (also headless) before initGui.
     def initProcessing(self):  # noqa: N802
         if self.provider is None:
-            self.provider = ChannelHabitatProvider()
-            QgsApplication.processingRegistry().addProvider(self.provider)
+            provider = ChannelHabitatProvider()
+            # addProvider refuses (and deletes) a second provider with the same id, e.g. when a
+            # test or script registered one already: keep ours only if it was accepted.
+            if QgsApplication.processingRegistry().addProvider(provider):
+                self.provider = provider
 
     def initGui(self):  # noqa: N802
         self.initProcessing()

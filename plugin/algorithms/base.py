@@ -1,9 +1,10 @@
 """Base class of every Channel Habitat algorithm.
 
 Subclasses set the class attributes and implement ``define(config)`` (declare parameters) and
-``run(parameters, context, feedback)`` (parameters -> gis -> core -> outputs; returns the results
-dict). The base class turns core errors into QgsProcessingException messages that name the
-parameter, turns a cancel into a clean stop, and removes any file output it had started.
+``compute(parameters, context, feedback)`` (parameters -> gis -> core -> outputs; returns the
+results dict). (Not ``run``: QgsProcessingAlgorithm.run is QGIS's own entry point.) The base
+class turns core errors into QgsProcessingException messages that name the parameter, turns a
+cancel into a clean stop, and removes any file output it had started.
 """
 
 from __future__ import annotations
@@ -66,7 +67,7 @@ class ChannelHabitatAlgorithm(QgsProcessingAlgorithm):
     def processAlgorithm(self, parameters, context, feedback):  # noqa: N802
         self._cleanup = []
         try:
-            return self.run(parameters, context, feedback)
+            return self.compute(parameters, context, feedback)
         except ChannelHabitatError as err:
             self._remove_partial(feedback)
             prefix = f"{err.parameter}: " if err.parameter else ""
@@ -92,8 +93,12 @@ class ChannelHabitatAlgorithm(QgsProcessingAlgorithm):
     def define(self, config):  # pragma: no cover - abstract
         raise NotImplementedError
 
-    def run(self, parameters, context, feedback):  # pragma: no cover - abstract
-        raise NotImplementedError
+    def compute(self, parameters, context, feedback):  # pragma: no cover - abstract
+        # Transitional: algorithms written against the first version of this class override
+        # ``run`` (and hand QGIS's own calls back to QgsProcessingAlgorithm.run).
+        if type(self).run is not QgsProcessingAlgorithm.run:
+            return self.run(parameters, context, feedback)
+        raise NotImplementedError(f"{type(self).__name__} must implement compute()")
 
     def progress(self, feedback, start: float = 0.0, end: float = 1.0) -> Progress:
         """A core Progress that reports to ``feedback`` (0-100 %) and stops on cancel."""

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from qgis.core import (
     QgsProcessing,
-    QgsProcessingAlgorithm,
     QgsProcessingParameterDefinition,
     QgsProcessingParameterEnum,
     QgsProcessingParameterFeatureSink,
@@ -135,12 +134,7 @@ describes the river without its structures; check that the control has not chang
                                       "(LADDER_TABLE)", "LADDER")
         return rt.parse_discharge_list(text, "LADDER"), unit, f"list ({unit})"
 
-    def run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs):
-        if qgis_args or qgis_kwargs:
-            # Called as QgsProcessingAlgorithm.run(parameters, context, feedback, configuration,
-            # catchExceptions) by processing.run: the base class's hook name shadows that method.
-            # Hand it back to QGIS, which calls processAlgorithm -> this run(parameters, context, feedback).
-            return QgsProcessingAlgorithm.run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs)
+    def compute(self, parameters, context, feedback):
         source = self.parameterAsSource(parameters, "RECORDS", context)
         if source is None:
             raise ChannelHabitatError("give the stage-discharge records table", "RECORDS")

@@ -1,6 +1,13 @@
 """The plugin loads headless and its provider lists every algorithm of DESIGN.md section 3."""
 
+import os
+import subprocess
+import sys
+from pathlib import Path
+
 from qgis.core import QgsApplication
+
+ROOT = Path(__file__).resolve().parents[2]
 
 DESIGNED_IDS = {
     "buildreach", "maphabitat", "compareregimes", "flowhabitat", "usablearea", "driftresidence",
@@ -8,16 +15,40 @@ DESIGNED_IDS = {
 }
 
 
-def test_class_factory_headless(qgis_app, qgis_processing):
+def test_class_factory_headless():
+    """In a fresh QGIS (a subprocess, so no other test has registered the provider yet):
+    classFactory(None) registers the provider, initGui without iface is harmless, unload removes it."""
+    code = """
+import sys
+from qgis.core import QgsApplication
+app = QgsApplication([], False); app.initQgis()
+sys.path.insert(0, sys.argv[1])
+import plugin
+reg = QgsApplication.processingRegistry()
+p = plugin.classFactory(None)
+p.initProcessing(); p.initGui()
+prov = reg.providerById("channelhabitat")
+assert prov is not None, "provider not registered"
+n = len(prov.algorithms())
+p.unload()
+assert reg.providerById("channelhabitat") is None, "provider not removed by unload"
+print("ok", n)
+"""
+    res = subprocess.run([sys.executable, "-c", code, str(ROOT)], capture_output=True, text=True,
+                         env={**os.environ, "QT_QPA_PLATFORM": "offscreen"}, timeout=120)
+    assert res.returncode == 0, res.stderr[-2000:]
+    assert res.stdout.split()[0] == "ok" and int(res.stdout.split()[1]) >= 1
+
+
+def test_second_registration_is_refused_cleanly(provider):
+    """With the provider already registered, a second plugin instance neither breaks it nor
+    removes it on unload."""
     import plugin
 
-    instance = plugin.classFactory(None)
-    instance.initProcessing()
-    instance.initGui()  # no iface: registers the provider only
-    reg = QgsApplication.processingRegistry()
-    assert reg.providerById("channelhabitat") is not None
-    instance.unload()
-    assert reg.providerById("channelhabitat") is None
+    p = plugin.classFactory(None)
+    p.initProcessing()
+    p.unload()
+    assert QgsApplication.processingRegistry().providerById("channelhabitat") is provider
 
 
 def test_every_algorithm_has_name_group_help(provider):

@@ -7,7 +7,6 @@ import os
 
 from qgis.core import (
     QgsProcessing,
-    QgsProcessingAlgorithm,
     QgsProcessingParameterEnum,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
@@ -152,15 +151,7 @@ class HabitatSeries(ChannelHabitatAlgorithm):
         self.addParameter(QgsProcessingParameterFileDestination(
             "REPORT", "Report", "HTML files (*.html)", optional=True, createByDefault=True))
 
-    def run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs):
-        if qgis_args or qgis_kwargs:
-            # processing.run calls QgsProcessingAlgorithm.run(parameters, context, feedback, configuration,
-            # catchExceptions); base.py's hook has the same name. Hand the call back to QGIS, which calls
-            # processAlgorithm -> this run(parameters, context, feedback).
-            return QgsProcessingAlgorithm.run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs)
-        return self.habitat_series(parameters, context, feedback)
-
-    def habitat_series(self, parameters, context, feedback):
+    def compute(self, parameters, context, feedback):
         progress = self.progress(feedback)
         # -- the curves of one regime, the units, targets and bloom criteria
         curves = FlowHabitatCurves.from_table(

@@ -621,10 +621,7 @@ class CurveView:
             return self.default_units()
         out = []
         for name in names:
-            try:
-                key = self.unit_keys[self.curves.unit_index(name)]
-            except ChannelHabitatError as err:
-                raise ChannelHabitatError(str(err), parameter) from None
+            key = self.unit_keys[self.curves.unit_index(name, parameter)]
             if key not in out:
                 out.append(key)
         return out
@@ -633,9 +630,9 @@ class CurveView:
         """'very slow+slow' -> canonical class names."""
         parts = [p for p in re.split(r"[+,]", text or "") if p.strip()]
         try:
-            idx = self.curves.class_indices(parts)
+            idx = self.curves.class_indices(parts, parameter)
         except ChannelHabitatError as err:
-            raise ChannelHabitatError(f"{err}{hint}", parameter) from None
+            raise ChannelHabitatError(f"{err}{hint}", err.parameter) from None
         return tuple(self.classes[i] for i in idx)
 
     def inside(self, q_mld) -> np.ndarray:

@@ -7,7 +7,6 @@ import os
 from qgis.core import (
     QgsCoordinateReferenceSystem,
     QgsProcessing,
-    QgsProcessingAlgorithm,
     QgsProcessingOutputNumber,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFileDestination,
@@ -115,15 +114,7 @@ by coverage union. The CRS must be projected, in metres.</p>
             "REPORT", "Report", "HTML files (*.html)", optional=True, createByDefault=True))
         self.addOutput(QgsProcessingOutputNumber("WET_AREA_M2", "Wet area inside the reach (m2)"))
 
-    def run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs):
-        if qgis_args or qgis_kwargs:
-            # Processing calls QgsProcessingAlgorithm.run(parameters, context, feedback, configuration,
-            # catchExceptions); base.py's hook has the same name. Hand the call back to QGIS, which calls
-            # processAlgorithm -> this run(parameters, context, feedback).
-            return QgsProcessingAlgorithm.run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs)
-        return self.map_habitat(parameters, context, feedback)
-
-    def map_habitat(self, parameters, context, feedback):
+    def compute(self, parameters, context, feedback):
         # --- read ---------------------------------------------------------------------------------
         fld, src = runinput.read_run_parameters(self, parameters, context, feedback,
                                                 progress=self.progress(feedback, 0.0, 0.25))
@@ -182,7 +173,7 @@ by coverage union. The CRS must be projected, in metres.</p>
                 self.will_write(qml)
                 geotiff.write(path, patches.class_grid(analysis), fld.support.transform, fld.crs_wkt, nodata=0,
                               colours={i + 1: c for i, c in enumerate(scheme.colours)},
-                              category_names=["dry"] + scheme.names, description=f"habitat class ({scheme.name})",
+                              description=f"habitat class ({scheme.name})",
                               metadata={"scheme": scheme.name, "classes": "; ".join(
                                   f"{i + 1} {c.name}: {c.describe()}" for i, c in enumerate(scheme.classes)),
                                   "run": run_label})

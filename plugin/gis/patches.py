@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import shapely
+import shapely.errors
 from osgeo import gdal, gdal_array, ogr
 
 from ..core.errors import as_progress
@@ -290,6 +291,25 @@ def sieve_mesh(codes, area, support: MeshSupport, min_area_m2: float, max_passes
     return codes
 
 
+def merge_faces(polys, areas=None):
+    """Union of mesh face polygons as a valid MultiPolygon. Coverage union first (exact and fast when
+    faces meet edge to edge); meshes with hanging nodes (quadtree refinement) are not a valid coverage,
+    so when GEOS refuses, or the result loses area, the general (slower) union is used instead."""
+    polys = np.asarray(polys, dtype=object)
+    expected = float(np.sum(areas)) if areas is not None else float(shapely.area(polys).sum())
+    try:
+        merged = shapely.coverage_union_all(polys)
+        ok = shapely.is_valid(merged) and abs(shapely.area(merged) - expected) <= 1e-9 * max(expected, 1.0)
+    except shapely.errors.GEOSException:
+        ok = False
+    if not ok:
+        merged = shapely.union_all(polys)
+    mp = merged if shapely.get_type_id(merged) == 6 else _polygonal(merged)
+    if not shapely.is_valid(mp):
+        mp = _polygonal(shapely.make_valid(mp))
+    return mp
+
+
 def mesh_patches(analysis, min_area_m2: float = 0.0, progress=None, polygons=None) -> Patches:
     """Patches of a mesh run: wet faces merged per (segment, class) by coverage union."""
     progress = as_progress(progress)
@@ -323,10 +343,7 @@ def mesh_patches(analysis, min_area_m2: float = 0.0, progress=None, polygons=Non
         if grp.size == 0:
             continue
         k, code = divmod(int(key[grp[0]]), 256)
-        merged = shapely.coverage_union_all(polys[grp])
-        mp = _polygonal(merged) if shapely.get_type_id(merged) != 6 else merged
-        if not shapely.is_valid(mp):
-            mp = _polygonal(shapely.make_valid(mp))
+        mp = merge_faces(polys[grp], fld.area[grp])
         rows.append((k, code, mp, float(fld.area[grp].sum()), int(shapely.get_num_geometries(mp))))
         if i % 8 == 0:
             progress(0.3 + 0.7 * i / max(len(groups), 1), "merging faces into habitat patches")
@@ -357,11 +374,7 @@ def _union_pieces(pieces, n):
     for g, geoms in by.items():
         if not 0 <= g < n:
             continue
-        u = geoms[0] if len(geoms) == 1 else shapely.coverage_union_all(np.array(geoms, dtype=object))
-        u = u if shapely.get_type_id(u) == 6 else _polygonal(u)
-        if not shapely.is_valid(u):
-            u = _polygonal(shapely.make_valid(u))
-        out[g] = u
+        out[g] = geoms[0] if len(geoms) == 1 else merge_faces(geoms)
     return out
 
 
@@ -408,7 +421,7 @@ def wet_footprints(analysis, threads: int = 2, polygons=None):
             if grp.size == 0:
                 continue
             k, z = int(seg[grp[0]]), int(zone[grp[0]])
-            pieces[(k, z)] = shapely.coverage_union_all(polys[grp])
+            pieces[(k, z)] = merge_faces(polys[grp], fld.area[grp])
     else:
         raise TypeError("the run has no grid or mesh support")
     seg_geoms = _union_pieces(pieces, n_seg)

@@ -95,7 +95,7 @@ def write_centreline(path, epsg=EPSG, x_from=X0, x_to=X0 + LENGTH, reverse=False
     return str(path) + "|layername=centreline"
 
 
-def mesh_arrays(fine=2.0, coarse=5.0):
+def mesh_arrays(fine=2.0, coarse=4.0):
     """Quad faces over the channel: 'coarse' squares in the left half (y < middle), 'fine' squares in
     the right half, sharing no edges across the middle line (two separate blocks), with the field
     sampled at face centres."""
@@ -119,7 +119,7 @@ def mesh_arrays(fine=2.0, coarse=5.0):
     return node_x, node_y, face_nodes, fx, fy
 
 
-def write_ugrid(path, epsg: int | None = EPSG, fine=2.0, coarse=5.0, node_values=False, groups="vector"):
+def write_ugrid(path, epsg: int | None = EPSG, fine=2.0, coarse=4.0, node_values=False, groups="vector"):
     """A UGRID-1.0 NetCDF mesh with depth and velocity on faces (or on nodes with node_values)."""
     import netCDF4
 

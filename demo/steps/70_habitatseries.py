@@ -1,4 +1,4 @@
-"""Demo: habitat through time on the invented daily flow year, with two ways to deliver 30 GL.
+"""Demo: habitat through time on the invented daily flow year, with two ways to deliver 40 GL.
 
 Needs the invented flow year (sample_gis/generated/daily_flows.csv) and flowhabitat's CURVES table
 written by an earlier demo step (found in the demo output folder). Without either it says so and
@@ -12,10 +12,14 @@ from pathlib import Path
 
 import numpy as np
 
-TITLE = "Habitat through time: a flow year and two ways to deliver 30 GL (habitatseries)"
+TITLE = "Habitat through time: a flow year and two ways to deliver 40 GL (habitatseries)"
 
-VOLUME_GL = 30.0
-TARGETS = "lower: moderate+fast >= 30%\nreach: very slow < 40%"
+VOLUME_GL = 40.0
+HOLD_MLD = 9000.0  # the level the recession option holds up (ML/d), falling 1 % a day
+TARGETS = "lower: moderate+fast >= 50%\nupper: fast >= 85%"
+# The invented reach's weir pool is rarely more than a fifth very slow, so the default share (50 %)
+# would flag no day; a 10 % share is used here to show the bloom-risk analysis at work.
+BLOOM_SHARE = 10.0
 
 
 def _find_curves(out: Path):
@@ -27,8 +31,9 @@ def _find_curves(out: Path):
 
 def _options(flows_csv: Path) -> str:
     """Two delivery options placed on the invented year: a pulse into the lowest 30 days of flow
-    starting in summer (December to February: the season of slow-water blooms), and the recession
-    of the highest fresh after the first quarter of the record held up, falling at most 2 % a day."""
+    starting in summer (December to February: the season of slow-water blooms), and, after the
+    highest fresh following the first quarter of the record, the recession held up from the day it
+    falls below HOLD_MLD, falling at most 1 % a day."""
     root = Path(__file__).resolve().parents[2]
     if str(root) not in sys.path:
         sys.path.insert(0, str(root))
@@ -44,8 +49,10 @@ def _options(flows_csv: Path) -> str:
     # local peaks (highest within +-3 days) after the first quarter, with 60 days left after them
     peaks = [i for i in range(n // 4, max(n // 4 + 1, n - 60)) if q[i] == q[max(0, i - 3): i + 4].max()]
     top = max(peaks, key=lambda i: q[i]) if peaks else int(np.argmax(q))
-    return (f"summer pulse: pulse start={iso(s.dates[low])} duration=7 ramp_up=3 ramp_down=10\n"
-            f"slow recession: recession start={iso(s.dates[top])} fall=2")
+    below = np.flatnonzero(q[top:] < HOLD_MLD)
+    hold = top + int(below[0]) if below.size else top
+    return (f"summer pulse: pulse start={iso(s.dates[low])} duration=5 ramp_up=2 ramp_down=5\n"
+            f"held recession: recession start={iso(s.dates[hold])} level={HOLD_MLD:g} fall=1")
 
 
 def run(demo):
@@ -71,7 +78,7 @@ def run(demo):
         "FLOWS": str(flows),
         "TARGETS": TARGETS,
         "BLOOM_CLASSES": "very slow",
-        "BLOOM_SHARE": 50.0,
+        "BLOOM_SHARE": BLOOM_SHARE,
         "BLOOM_MIN_DAYS": 5,
         "ENV_VOLUME": VOLUME_GL,
         "VOLUME_UNIT": 1,  # GL

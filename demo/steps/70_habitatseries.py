@@ -23,10 +23,25 @@ BLOOM_SHARE = 10.0
 
 
 def _find_curves(out: Path):
-    """flowhabitat's CURVES output from an earlier step: a GeoPackage or CSV named *curves*."""
-    found = sorted(p for ext in ("gpkg", "csv") for p in out.rglob(f"*curves*.{ext}")
-                   if "habitatseries" not in p.parts)
-    return found[0] if found else None
+    """flowhabitat's CURVES output from an earlier step: a CSV or GeoPackage named like *curves*,
+    or a layer named like *curves* inside a GeoPackage of the output folder."""
+    files = sorted(p for p in out.rglob("*") if p.suffix.lower() in (".gpkg", ".csv")
+                   and "habitatseries" not in p.parts and p.is_file())
+    for p in files:
+        if "curves" in p.stem.lower():
+            return str(p)
+    from osgeo import ogr
+
+    for p in files:
+        if p.suffix.lower() != ".gpkg":
+            continue
+        ds = ogr.Open(str(p))
+        names = [ds.GetLayer(i).GetName() for i in range(ds.GetLayerCount())] if ds is not None else []
+        ds = None
+        for name in names:
+            if "curves" in name.lower():
+                return f"{p}|layername={name}"
+    return None
 
 
 def _options(flows_csv: Path) -> str:

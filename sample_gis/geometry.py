@@ -30,6 +30,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy.interpolate import PchipInterpolator
+from scipy.ndimage import gaussian_filter1d
 from scipy.spatial import cKDTree
 
 REACH_NAME = "Figment River"
@@ -109,6 +110,7 @@ class Bench:
         return "left" if self.side > 0 else "right"
 
 
+BED_SMOOTHING_M = 80.0  # standard deviation of the along-channel smoothing of bend-driven bed shape
 BENCH_RISER_M = 4.0  # horizontal width of the step from the bank top down to a bench
 
 
@@ -290,12 +292,17 @@ class ReachGeometry:
         self.bank_top = self.z_ref + d.crossing_depth_m
         # bendiness: signed curvature x width, lagged downstream, 1 at a bend of radius = 2 widths
         lagged = np.interp(c - d.bend_lag_m, c, self.curvature)
-        beta = np.clip(lagged * self.width / 0.5, -1.0, 1.0)
+        raw = np.clip(lagged * self.width / 0.5, -1.0, 1.0)
+        # scour pools and point bars change gradually along the channel: smooth over ~80 m so the
+        # bed has no kinks (|curvature| has one at every crossing)
+        sigma = BED_SMOOTHING_M / max(float(np.median(np.diff(c))), 1e-9)
+        beta = gaussian_filter1d(raw, sigma, mode="nearest")
+        bendiness = gaussian_filter1d(np.abs(raw), sigma, mode="nearest")
         self.beta = beta
         rng = np.random.default_rng([d.seed, 3])
         taper = _smoothstep(np.minimum(c / 800.0, (L - c) / 1200.0))
         noise = taper * _smooth_noise(rng, c, 0.15, (900.0, 1700.0, 3100.0))
-        self.thalweg_depth = d.crossing_depth_m + d.bend_extra_depth_m * np.abs(beta) + noise
+        self.thalweg_depth = d.crossing_depth_m + d.bend_extra_depth_m * bendiness + noise
         self.eta_t = -d.thalweg_shift * beta  # towards the outer bank (right when turning left)
         pos, neg = np.maximum(beta, 0.0), np.maximum(-beta, 0.0)
         self.p_right = 2.2 + 2.3 * pos - 0.8 * neg  # right bank is the outer bank when turning left
@@ -396,7 +403,7 @@ class ReachGeometry:
         r = 1.0 / np.maximum(np.abs(self.curvature), 1e-12)
         w_over_r = self.width / r
         finite = np.isfinite(self.gap)
-        min_gap = float(self.gap[finite].min()) if finite.any() else float("inf")
+        min_gap = float(self.gap[finite].min()) if finite.any() else None  # None: no part comes close
         return {
             "length_m": self.length_m,
             "bends": int(len(self.planform.apex_s)),

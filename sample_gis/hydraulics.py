@@ -116,6 +116,26 @@ def section_integrals(offsets, bed, levels, perimeter=True):
     }
 
 
+def strip_phi(offsets, bed, levels):
+    """Integral of d^(5/3) across piecewise-linear sections (exact per piece, as in
+    :func:`section_integrals`). offsets, bed: (..., m); levels: (..., R) -> (..., R)."""
+    raw = np.asarray(levels, dtype=float)[..., :, None] - np.asarray(bed, dtype=float)[..., None, :]
+    d = np.maximum(raw, 0.0)
+    cb = np.cbrt(d)
+    p53 = d * cb * cb
+    p83 = p53 * d
+    ra, rb = raw[..., :-1], raw[..., 1:]
+    a, b = d[..., :-1], d[..., 1:]
+    w = np.diff(np.asarray(offsets, dtype=float), axis=-1)[..., None, :]
+    span = np.abs(ra - rb)
+    f = np.where((ra >= 0) & (rb >= 0), 1.0,
+                 np.where((ra > 0) | (rb > 0), np.maximum(ra, rb) / np.where(span > 0, span, 1.0), 0.0))
+    diff = b - a
+    close = np.abs(diff) < 1e-6
+    general = (p83[..., 1:] - p83[..., :-1]) / np.where(close, 1.0, diff) * 0.375
+    return np.sum(f * w * np.where(close, 0.5 * (p53[..., :-1] + p53[..., 1:]), general), axis=-1)
+
+
 @dataclass
 class Section:
     """A cross-section: bed levels at offsets across the channel and a Manning n.

@@ -6,9 +6,11 @@ properties tabulated, and the standard-step profiles of all runs solved together
 
 * water level: linear between the two neighbouring sections;
 * depth: water level minus the bed level there;
-* unit discharge q = Q d^(5/3) / Phi, with Phi = integral of d^(5/3) across the section (linear
-  between sections), so velocity V = q / d grows with local depth and the unit discharge integrated
-  across a section returns Q (conveyance weighting, the strip form of Manning's equation);
+* unit discharge q = Q d^(5/3) / Phi, with Phi = integral of d^(5/3) across the section, so
+  velocity V = q / d grows with local depth and the unit discharge integrated across a section
+  returns Q (conveyance weighting, the strip form of Manning's equation). Phi is computed on
+  stations ``phi_spacing`` apart (finer than the profile's sections, with the same interpolated
+  water level), so that bed features between profile sections keep the discharge right;
 * direction: along the channel (the smooth centreline direction at that chainage), so
   u = V cos(theta), v = V sin(theta).
 """
@@ -35,7 +37,8 @@ class Run:
 
 
 class ReachModel:
-    def __init__(self, geom, regimes=REGIMES, ladder=LADDER_MLD, spacing: float = 50.0, points: int = 121):
+    def __init__(self, geom, regimes=REGIMES, ladder=LADDER_MLD, spacing: float = 50.0, points: int = 121,
+                 phi_spacing: float = 10.0):
         self.geom = geom
         d = geom.design
         L = geom.length_m
@@ -71,10 +74,30 @@ class ReachModel:
         top = geom.along("bank_top", self.chainage)
         over = self.wse - top[:, None]
         self.max_over_bank_m = float(over.max())
-        self.phi = self._at_all(self.wse, "phi")
+        self._fine_phi(geom, points, phi_spacing)
         self.area = self._at_all(self.wse, "area")
         self.top_width = self._at_all(self.wse, "top_width")
         self.alpha = self._at_all(self.wse, "alpha")
+
+    def _fine_phi(self, geom, points, spacing, chunk=32):
+        L = geom.length_m
+        n = max(int(np.ceil(L / spacing)), 1)
+        self.phi_chainage = fc = np.linspace(0.0, L, n + 1)
+        half = 0.5 * geom.along("width", fc)
+        offsets = np.linspace(-1.0, 1.0, points)[None, :] * half[:, None]
+        bed = geom.bed(np.repeat(fc[:, None], points, axis=1), offsets)
+        i, t = self._coarse(fc)
+        level = (1.0 - t)[:, None] * self.wse[i] + t[:, None] * self.wse[i + 1]
+        self.phi = np.empty_like(level)
+        for s0 in range(0, len(fc), chunk):
+            s1 = min(s0 + chunk, len(fc))
+            self.phi[s0:s1] = hy.strip_phi(offsets[s0:s1], bed[s0:s1], level[s0:s1])
+
+    def _coarse(self, c):
+        ch = self.chainage
+        i = np.clip(np.searchsorted(ch, c, side="right") - 1, 0, len(ch) - 2)
+        t = np.clip((c - ch[i]) / (ch[i + 1] - ch[i]), 0.0, 1.0)
+        return i, t
 
     def _at_all(self, h, name):
         t = self.tables
@@ -93,19 +116,22 @@ class ReachModel:
 
     # ----------------------------------------------------------------------------------------
     def weights(self, c):
-        """Section index and weight of every chainage (for repeated evaluation)."""
-        ch = self.chainage
-        i = np.clip(np.searchsorted(ch, c, side="right") - 1, 0, len(ch) - 2)
-        t = np.clip((c - ch[i]) / (ch[i + 1] - ch[i]), 0.0, 1.0)
-        return i, t
+        """Indices and weights of every chainage between profile sections and between Phi
+        stations (computed once, reused for every run)."""
+        c = np.asarray(c, dtype=float)
+        i, t = self._coarse(c)
+        fc = self.phi_chainage
+        j = np.clip(np.searchsorted(fc, c, side="right") - 1, 0, len(fc) - 2)
+        s = np.clip((c - fc[j]) / (fc[j + 1] - fc[j]), 0.0, 1.0)
+        return i, t, j, s
 
     def values(self, run: Run, where, bed, cos_t, sin_t):
         """(depth, speed, u, v) at points with section weights ``where`` = (i, t), bed level, and
         the channel direction. Dry points (depth <= 0) get NaN."""
-        i, t = where
+        i, t, j, s = where
         r = run.column
         level = (1.0 - t) * self.wse[i, r] + t * self.wse[i + 1, r]
-        phi = (1.0 - t) * self.phi[i, r] + t * self.phi[i + 1, r]
+        phi = (1.0 - s) * self.phi[j, r] + s * self.phi[j + 1, r]
         depth = level - bed
         wet = depth > 0.0
         dw = np.where(wet, depth, 0.0)

@@ -175,9 +175,9 @@ banks, axis and km posts use neutral colours that do not compete with the classe
         # catchExceptions); base.py's hook has the same name, so tell the two apart by the arguments.
         if args or kwargs:
             return QgsProcessingAlgorithm.run(self, parameters, context, feedback, *args, **kwargs)
-        return self.make_panels(parameters, context, feedback)
+        return self.compute(parameters, context, feedback)
 
-    def make_panels(self, parameters, context, feedback):
+    def compute(self, parameters, context, feedback):
         reach = read_reach_parameters(self, parameters, context, feedback)
         axis_crs = self.parameterAsSource(parameters, CENTRELINE, context).sourceCrs()
         if axis_crs.isValid() and axis_crs.isGeographic():
@@ -235,11 +235,15 @@ banks, axis and km posts use neutral colours that do not compete with the classe
             banks = layouts.panel_copy(banks_src)
             poly = banks.geometryType() == QgsWkbTypes.PolygonGeometry
             layouts.apply_qml(banks, "panel_banks_polygon.qml" if poly else "panel_banks_line.qml")
-        veg = None
+        veg = veg_outline = None
         veg_src = self.parameterAsVectorLayer(parameters, "VEGETATION", context)
         if veg_src is not None:
+            # hatched stands under the water classes (wetted parts show the class of the water over
+            # them), a thin outline over them so every stand stays visible
             veg = layouts.panel_copy(veg_src)
             layouts.apply_qml(veg, "veg_stands.qml")
+            veg_outline = layouts.panel_copy(veg_src)
+            layouts.apply_qml(veg_outline, "veg_outline.qml")
         extras = []
         for lyr in self.parameterAsLayerList(parameters, "EXTRA_LAYERS", context):
             c = layouts.panel_copy(lyr)
@@ -262,15 +266,18 @@ banks, axis and km posts use neutral colours that do not compete with the classe
         locator_pages = layouts.panel_copy(coverage)
         layouts.apply_qml(locator_pages, "panel_pages.qml")
 
+        habitat_item = layouts.PanelLayer(hab, legend_title)
         stack = [layouts.PanelLayer(posts, "Chainage post (km along the reach axis)")]
         stack += [layouts.PanelLayer(e, e.name()) for e in extras]
-        if veg is not None:
-            stack.append(layouts.PanelLayer(veg, "Bank vegetation"))
+        if veg_outline is not None:
+            stack.append(layouts.PanelLayer(veg_outline))
         stack.append(layouts.PanelLayer(axis, "Reach axis (centreline)"))
         if banks is not None:
             stack.append(layouts.PanelLayer(banks, "Bank top (channel outline)"))
-        stack.append(layouts.PanelLayer(hab, legend_title))
-        legend_order = [stack[-1]] + stack[:-1]
+        stack.append(habitat_item)
+        if veg is not None:
+            stack.append(layouts.PanelLayer(veg, "Bank vegetation"))
+        legend_order = [habitat_item] + [pl for pl in stack if pl is not habitat_item]
         extent = QgsRectangle(*_bounds(reach))
         stem = _file_stem(regime, q, unit)
         add = self.parameterAsBoolean(parameters, "ADD_TO_PROJECT", context) and context.project() is not None

@@ -133,7 +133,7 @@ each change of class.</p>
             # Processing calls QgsProcessingAlgorithm.run(parameters, context, feedback, configuration,
             # catchExceptions); base.py's hook has the same name: hand the call back to QGIS.
             return QgsProcessingAlgorithm.run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs)
-        return self.overlay(parameters, context, feedback)
+        return self.compute(parameters, context, feedback)
 
     # ------------------------------------------------------------------------------------------
     def _runs(self, parameters, context):
@@ -171,7 +171,7 @@ each change of class.</p>
                                       "SCENARIOS")
         return runs
 
-    def overlay(self, parameters, context, feedback):
+    def compute(self, parameters, context, feedback):
         source = self.parameterAsSource(parameters, "VEGETATION", context)
         comm_field = (self.parameterAsFields(parameters, "COMMUNITY_FIELD", context) or [""])[0]
         id_field = (self.parameterAsFields(parameters, "ID_FIELD", context) or [""])[0]

@@ -471,6 +471,11 @@ def _vegetation_style(layer: QgsVectorLayer) -> None:
     layer.setRenderer(QgsSingleSymbolRenderer(sym))
 
 
+def _vegetation_outline_style(layer: QgsVectorLayer) -> None:
+    layer.setRenderer(QgsSingleSymbolRenderer(QgsFillSymbol.createSimple({
+        "color": "0,0,0,0", "style": "no", "outline_color": VEGETATION_COLOUR, "outline_width": "0.2"})))
+
+
 def _pages_style(layer: QgsVectorLayer) -> None:
     layer.setRenderer(QgsSingleSymbolRenderer(QgsFillSymbol.createSimple({
         "color": "0,0,0,0", "style": "no", "outline_color": PAGE_OUTLINE, "outline_width": "0.2"})))
@@ -489,6 +494,7 @@ STYLES = {
     "panel_banks_line.qml": ("LineString", _banks_line_style, []),
     "panel_pages.qml": ("Polygon", _pages_style, []),
     "veg_stands.qml": ("Polygon", _vegetation_style, []),
+    "veg_outline.qml": ("Polygon", _vegetation_outline_style, []),
 }
 
 
@@ -619,14 +625,10 @@ def build_layout(project, template_path: str, spec: PanelSpec, feedback=None) ->
     sb = layout.itemById("scalebar")
     if isinstance(sb, QgsLayoutItemScaleBar):
         sb.setLinkedMap(main)
-        if spec.scalebar_km:
-            sb.setUnits(QgsUnitTypes.DistanceKilometers)
-            sb.setUnitLabel("km")
-            sb.setMapUnitsPerScaleBarUnit(1000.0)
-        else:
-            sb.setUnits(QgsUnitTypes.DistanceMeters)
-            sb.setUnitLabel("m")
-            sb.setMapUnitsPerScaleBarUnit(1.0)
+        # QGIS converts map units to the bar's units itself; the factor stays 1
+        sb.setUnits(QgsUnitTypes.DistanceKilometers if spec.scalebar_km else QgsUnitTypes.DistanceMeters)
+        sb.setUnitLabel("km" if spec.scalebar_km else "m")
+        sb.setMapUnitsPerScaleBarUnit(1.0)
     na = layout.itemById("north_arrow")
     if isinstance(na, QgsLayoutItemPicture):
         na.setLinkedMap(main)

@@ -36,7 +36,7 @@ def wetted_chart(summary):
         ax.set_xticks(x)
         ax.set_xticklabels([c or "(no community)" for c in comms])
         charts.style_axes(ax, None, "wetted share of the stands (%)")
-        ax.legend(frameon=False, fontsize=8, ncol=min(len(runs), 4), loc="upper left", bbox_to_anchor=(0, 1.15))
+        ax.legend(frameon=False, fontsize=8, ncol=1, loc="upper left", bbox_to_anchor=(1.01, 1.0))
         return fig
     n = min(len(comms), 6)
     fig, axes = charts.new_figure(9.0, 2.4 * ((n + 2) // 3), nrows=(n + 2) // 3, ncols=min(n, 3), squeeze=False)

@@ -203,7 +203,7 @@ def test_bad_inputs(run_alg, tmp_path):
 @pytest.mark.slow
 def test_demo_wetted_share_follows_pool_level(run_alg, sample_dir, tmp_path):
     # plausibility on the invented demo (not a reference): at the lowest discharge, a higher pool
-    # wets more bank vegetation; the grassland benches are wetted only when the pool is raised
+    # wets more bank vegetation (the reed benches near the weir sit just above the normal pool)
     res = run_alg("vegetationoverlay", {
         "VEGETATION": str(sample_dir / "vegetation.gpkg"), "SCENARIOS": str(sample_dir / "scenarios.csv"),
         "SCENARIO_REGIMES": "weir_lowered, weir, weir_raised", "SCENARIO_DISCHARGES": "3000", "EDGES": None,
@@ -216,6 +216,8 @@ def test_demo_wetted_share_follows_pool_level(run_alg, sample_dir, tmp_path):
         area[f["regime"]] = area.get(f["regime"], 0.0) + f["area_m2"]
     pct = {k: 100 * wet[k] / area[k] for k in wet}
     assert pct["weir_lowered"] < pct["weir"] < pct["weir_raised"]
+    # a higher pool raises the water everywhere upstream of the weir, so no community loses wetted area
     _, summ = _features(res["COMMUNITY_SUMMARY"])
-    bench = {f["regime"]: f["wet_pct"] for f in summ if "bench" in f["community"]}
-    assert bench and bench["weir_raised"] > 0 and bench["weir"] == 0 and bench["weir_lowered"] == 0
+    by = {(f["community"], f["regime"]): f["wet_pct"] for f in summ}
+    for comm in {c for c, _ in by}:
+        assert by[(comm, "weir_lowered")] <= by[(comm, "weir")] <= by[(comm, "weir_raised")], comm

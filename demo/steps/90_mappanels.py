@@ -1,0 +1,105 @@
+"""Demo: map panels for the weir and natural regimes at the lowest discharge of the ladder.
+
+Panels come last: they draw what the other steps make. For each regime the velocity classes come
+from maphabitat (run here on the demo rasters, so the step stands on its own), the reach axis and
+km posts from buildreach (the demo centreline is digitised downstream to upstream on purpose;
+buildreach orients it). Each regime gets one page per reach zone (A4) and an atlas of 3 km pages
+along the river (A4, maps rotated to follow the channel); PDF and PNG pages.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+from osgeo import ogr
+
+TITLE = "Map panels: weir and natural regimes at 3000 ML/d (mappanels)"
+
+REGIMES = ("weir", "natural")
+DISCHARGE_MLD = 3000
+DATE = "2026-12-01"
+
+
+def _has(alg_id: str) -> bool:
+    from qgis.core import QgsApplication
+
+    return QgsApplication.processingRegistry().algorithmById(f"channelhabitat:{alg_id}") is not None
+
+
+def _reach(demo):
+    """(axis, posts or None, note): buildreach's AXIS and POSTS; without buildreach, the centreline
+    reversed to run upstream to downstream (posts are then placed by mappanels)."""
+    centreline = demo.sample / "centreline.gpkg"
+    if _has("buildreach"):
+        res = demo.run("buildreach", {
+            "CENTRELINE": str(centreline), "AXIS": demo.path("mappanels", "reach", "axis.gpkg"),
+            "POSTS": demo.path("mappanels", "reach", "posts.gpkg")})
+        return res["AXIS"], res["POSTS"], "reach axis and km posts from buildreach"
+    path = demo.path("mappanels", "reach", "axis_upstream_to_downstream.gpkg")
+    src = ogr.Open(str(centreline))
+    layer = src.GetLayer(0)
+    feat = layer.GetNextFeature()
+    geom = feat.GetGeometryRef()
+    pts = geom.GetPoints()[::-1]
+    if os.path.exists(path):
+        os.remove(path)
+    ds = ogr.GetDriverByName("GPKG").CreateDataSource(path)
+    out = ds.CreateLayer("axis", layer.GetSpatialRef(), ogr.wkbLineString)
+    line = ogr.Geometry(ogr.wkbLineString)
+    for p in pts:
+        line.AddPoint_2D(p[0], p[1])
+    f = ogr.Feature(out.GetLayerDefn())
+    f.SetGeometry(line)
+    out.CreateFeature(f)
+    f = None
+    ds = None
+    del feat, layer, src
+    return path, None, ("buildreach is not available: the demo centreline reversed (it is digitised downstream "
+                        "to upstream)")
+
+
+def _folder(demo, *parts) -> str:
+    folder = Path(demo.out).joinpath(*parts)
+    folder.mkdir(parents=True, exist_ok=True)
+    return str(folder)
+
+
+def run(demo):
+    rasters = demo.sample / "rasters"
+    if not rasters.exists() or not (demo.sample / "centreline.gpkg").exists():
+        demo.log("  skipped: the demo rasters or centreline are not there (run `make sample`)")
+        return []
+    axis, posts, note = _reach(demo)
+    demo.log(f"  {note}")
+    items = []
+    for regime in REGIMES:
+        stem = f"{regime}_q{DISCHARGE_MLD:05d}"
+        classes = demo.path("mappanels", regime, f"{stem}_classes.tif")
+        demo.run("maphabitat", {
+            "DEPTH": str(rasters / regime / f"q{DISCHARGE_MLD:05d}_depth.tif"),
+            "SPEED": str(rasters / regime / f"q{DISCHARGE_MLD:05d}_speed.tif"),
+            "CENTRELINE": axis, "CLASSES": classes, "PATCHES": "TEMPORARY_OUTPUT",
+            "SEGMENT_STATS": "TEMPORARY_OUTPUT", "ZONE_STATS": "TEMPORARY_OUTPUT", "REPORT": None})
+        common = {
+            "HABITAT": classes, "CENTRELINE": axis, "BANKS": str(demo.sample / "channel.gpkg"),
+            "VEGETATION": str(demo.sample / "vegetation.gpkg"), "REGIME": regime, "DISCHARGE": DISCHARGE_MLD,
+            "DISCHARGE_UNIT": 0, "DATE": DATE, "PAPER": 0, "DPI": 150, "ADD_TO_PROJECT": False}
+        if posts:
+            common["POSTS"] = posts
+        zones = demo.run("mappanels", {
+            **common, "PAGES_MODE": 0, "PDF": demo.path("mappanels", regime, f"{stem}_zones.pdf"),
+            "PNG_FOLDER": _folder(demo, "mappanels", regime, "zones"),
+            "PAGES": demo.path("mappanels", regime, f"{stem}_zone_pages.gpkg")})
+        atlas = demo.run("mappanels", {
+            **common, "PAGES_MODE": 1, "PAGE_LENGTH": 3000.0,
+            "PDF": demo.path("mappanels", regime, f"{stem}_atlas.pdf"),
+            "PNG_FOLDER": _folder(demo, "mappanels", regime, "atlas"),
+            "PAGES": demo.path("mappanels", regime, f"{stem}_atlas_pages.gpkg")})
+        demo.log(f"  {regime}: {zones['PAGE_COUNT']} zone pages, {atlas['PAGE_COUNT']} atlas pages")
+        items += [(f"{regime}: zone pages (PDF)", zones["PDF"]),
+                  (f"{regime}: atlas along the river (PDF)", atlas["PDF"])]
+        items += [(f"{regime}: zone page {i + 1} (PNG)", p) for i, p in enumerate(zones["PNG_FILES"].split(";"))]
+        pngs = atlas["PNG_FILES"].split(";")
+        items += [(f"{regime}: atlas page {i + 1} (PNG)", p) for i, p in enumerate(pngs)]
+    return items

@@ -234,9 +234,8 @@ class GridFlow:
         # continuous cell-centre index: gc = x / dx + bc (bilinear corner = floor(gc))
         self.bc = -self.ox * self.inv_dx - 0.5
         self.br = -self.oy * self.inv_dy - 0.5
-        # the full raster extent (outside it is 'outside', inside it dry cells are 'stranded')
-        self.extent = (min(x0, x0 + cols * dx), max(x0, x0 + cols * dx),
-                       min(y0, y0 + rows * dy), max(y0, y0 + rows * dy))
+        # the full raster (outside it is 'outside', inside it dry cells are 'stranded')
+        self.raster = (x0, y0, dx, dy, rows, cols)
         self.size_m = min(abs(dx), abs(dy))
         self.uniform_size = self.size_m
         self._offsets = np.array([0, 1, self.nc, self.nc + 1], dtype=np.int64)[:, None]
@@ -280,16 +279,18 @@ class GridFlow:
                               vals[4] if values >= 4 else None, near, np.where(near, 0, -1))
         # the containing cell is the corner nearest the point
         half = f >= 0.5
-        j = half[0] + 2 * half[1].view(np.int8)
+        j = half[0] + 2 * half[1].astype(np.intp)
         cs = slots.ravel()[j * n + np.arange(n)]
         wet = cs > 0
         return FlowSample(vals[1], vals[2], vals[3] if values >= 3 else None,
                           vals[4] if values >= 4 else None, wet, np.where(wet, cs, -1))
 
     def outside(self, x, y) -> np.ndarray:
-        """Points outside the raster's extent."""
-        e = self.extent
-        return (x < e[0]) | (x > e[1]) | (y < e[2]) | (y > e[3])
+        """Points in no cell of the raster (same cell convention as :meth:`sample`)."""
+        x0, y0, dx, dy, rows, cols = self.raster
+        c = np.floor((np.asarray(x, dtype=np.float64) - x0) / dx)
+        r = np.floor((np.asarray(y, dtype=np.float64) - y0) / dy)
+        return (c < 0) | (c >= cols) | (r < 0) | (r >= rows)
 
 
 def _polygon_edges(node_x, node_y, face_nodes):
@@ -621,6 +622,45 @@ def _rk4(flow, x, y, where, k1u, k1v, dt, values=4):
     return xn, yn, (s2, s3, s4)
 
 
+def _crossing(chainage_of, end_m, x0, y0, u0, v0, c0, x1, y1, u1, v1, wet1, c1, dt, iterations: int = 6):
+    """Where and when (fraction of the step) the path crosses the end chainage.
+
+    The path within the step is the cubic Hermite curve through the step's ends with the
+    velocities there as tangents (4th-order accurate like the step itself; where the end point is
+    out of the water its velocity is replaced by the start's); the chainage on it is solved for
+    ``end_m`` by the Illinois variant of regula falsi, bracketed by the step's ends."""
+    u1 = np.where(wet1, u1, u0)
+    v1 = np.where(wet1, v1, v0)
+
+    def point(sv):
+        s2, s3 = sv * sv, sv * sv * sv
+        h00, h10, h01, h11 = 2 * s3 - 3 * s2 + 1, s3 - 2 * s2 + sv, -2 * s3 + 3 * s2, s3 - s2
+        return (h00 * x0 + h10 * dt * u0 + h01 * x1 + h11 * dt * u1,
+                h00 * y0 + h10 * dt * v0 + h01 * y1 + h11 * dt * v1)
+
+    lo, hi = np.zeros_like(c0), np.ones_like(c0)
+    flo, fhi = c0 - end_m, c1 - end_m  # flo < 0 <= fhi
+    s = np.clip(np.where(fhi > flo, -flo / np.where(fhi > flo, fhi - flo, 1.0), 1.0), 0.0, 1.0)
+    side = np.zeros(c0.shape, dtype=np.int8)
+    for _ in range(iterations):
+        px, py = point(s)
+        fs = np.asarray(chainage_of(px, py), dtype=np.float64) - end_m
+        right = fs >= 0
+        # Illinois: halve the value kept twice on the same side
+        fhi = np.where(~right & (side == -1), fhi * 0.5, fhi)
+        flo = np.where(right & (side == 1), flo * 0.5, flo)
+        hi = np.where(right, s, hi)
+        fhi = np.where(right, fs, fhi)
+        lo = np.where(right, lo, s)
+        flo = np.where(right, flo, fs)
+        side = np.where(right, 1, -1).astype(np.int8)
+        den = fhi - flo
+        s = np.where(den > 0, lo - flo * (hi - lo) / np.where(den > 0, den, 1.0), hi)
+        s = np.clip(s, lo, hi)
+    px, py = point(s)
+    return s, px, py
+
+
 def _take(sample: FlowSample, sel) -> FlowSample:
     return FlowSample(*(None if a is None else a[sel] for a in sample))
 
@@ -738,11 +778,10 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
             if hit.any():
                 ci = cand[hit]
                 c_old = np.asarray(exact_chainage(x[ci], y[ci]), dtype=np.float64)
-                dc = c_new[hit] - c_old
-                f = np.where(dc > 0, np.clip((end_m - c_old) / np.where(dc > 0, dc, 1.0), 0.0, 1.0), 1.0)
+                f, px, py = _crossing(exact_chainage, end_m, x[ci], y[ci], cur.u[ci], cur.v[ci], c_old,
+                                      xn[ci], yn[ci], nxt.u[ci], nxt.v[ci], nxt.wet[ci], c_new[hit], dt[ci])
                 frac[ci] = f
-                xn[ci] = x[ci] + f * (xn[ci] - x[ci])
-                yn[ci] = y[ci] + f * (yn[ci] - y[ci])
+                xn[ci], yn[ci] = px, py
                 stop[ci] = FATE_DOWNSTREAM
         # a step that ends out of the water: retry shorter; else find the exit
         bad = np.flatnonzero(~nxt.wet & (stop < 0))
@@ -1154,9 +1193,11 @@ def reach_window(reach, chainage, element_size: float, release_m=None, end_m=Non
     c = c[np.isfinite(c)]
     if c.size == 0:
         raise ChannelHabitatError("no wet element of the run lies along the reach axis", "CENTRELINE")
-    field_start, field_end = float(c.min()), float(c.max())
+    # the wet field's extent along the axis (element centres +- half an element, within the axis)
+    field_start = max(float(c.min()) - element_size / 2.0, axis.start_m)
+    field_end = min(float(c.max()) + element_size / 2.0, axis.end_m)
     if release_m is None:
-        release_m = max(axis.start_m, field_start) + element_size
+        release_m = field_start + element_size
     if end_m is None:
         end_m = axis.end_m
     if not axis.start_m <= release_m < axis.end_m:

@@ -19,6 +19,10 @@ from pathlib import Path
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
+# QGIS's own Python plugins (the Processing framework) are not on sys.path outside the QGIS app.
+QGIS_PLUGINS = Path("/usr/share/qgis/python/plugins")
+if QGIS_PLUGINS.is_dir() and str(QGIS_PLUGINS) not in sys.path:
+    sys.path.append(str(QGIS_PLUGINS))
 
 
 class Demo:

@@ -21,7 +21,7 @@ from qgis.core import (
     QgsProcessingLayerPostProcessorInterface,
     QgsWkbTypes,
 )
-from qgis.PyQt.QtCore import QVariant
+from qgis.PyQt.QtCore import QDate, QDateTime, QVariant
 
 from ..resources import resource_path
 
@@ -30,6 +30,8 @@ _KEEP_ALIVE = []  # post-processors must outlive the algorithm call
 
 def _qvariant_type(values):
     arr = np.asarray(values) if not isinstance(values, np.ndarray) else values
+    if arr.dtype.kind == "M":
+        return QVariant.Date if arr.dtype == np.dtype("datetime64[D]") else QVariant.DateTime
     if arr.dtype.kind == "b":
         return QVariant.Bool
     if arr.dtype.kind in "iu":
@@ -47,8 +49,15 @@ def fields_from_columns(columns: dict) -> QgsFields:
 
 
 def _py(value, qtype):
-    if value is None:
+    if value is None or value is np.ma.masked:
         return None
+    if qtype in (QVariant.Date, QVariant.DateTime):
+        if np.isnat(value):
+            return None
+        text = str(np.datetime_as_string(value, unit="D" if qtype == QVariant.Date else "s"))
+        if qtype == QVariant.Date:
+            return QDate.fromString(text, "yyyy-MM-dd")
+        return QDateTime.fromString(text, "yyyy-MM-ddTHH:mm:ss")
     if qtype == QVariant.Double:
         v = float(value)
         return None if not np.isfinite(v) else v
@@ -88,7 +97,8 @@ def write_features(alg, parameters, context, name: str, columns: dict, geometrie
                                      crs or QgsCoordinateReferenceSystem())
     if sink is None:
         raise QgsProcessingException(alg.invalidSinkError(parameters, name))
-    cols = [np.asarray(v) if not isinstance(v, list) else v for v in columns.values()]
+    # Masked arrays keep their mask (masked values are written as NULL).
+    cols = [v if isinstance(v, (list, np.ndarray)) else np.asarray(v) for v in columns.values()]
     feats = []
     for i in range(n):
         f = QgsFeature(fields)

@@ -80,7 +80,7 @@ from qgis.PyQt.QtCore import Qt
 from qgis.PyQt.QtGui import QColor, QFont
 from qgis.PyQt.QtXml import QDomDocument
 
-from ..core.errors import ChannelHabitatError
+from ..core.errors import Cancelled, ChannelHabitatError
 from ..resources import resource_path
 
 gdal.UseExceptions()
@@ -679,6 +679,8 @@ def export_layout(layout: QgsPrintLayout, pdf_path: str | None, png_dir: str | N
         s.simplifyGeometries = True
         try:
             res, err = QgsLayoutExporter.exportToPdf(atlas, tmp, s, feedback)
+            if res == QgsLayoutExporter.Canceled or (feedback is not None and feedback.isCanceled()):
+                raise Cancelled("cancelled by the user")
             if res != QgsLayoutExporter.Success:
                 raise ChannelHabitatError(f"the PDF could not be written ({_result_text(res)}): {err}", "PDF")
             os.replace(tmp, pdf_path)
@@ -695,6 +697,8 @@ def export_layout(layout: QgsPrintLayout, pdf_path: str | None, png_dir: str | N
             s.generateWorldFile = False
             s.exportMetadata = False
             res, err = QgsLayoutExporter.exportToImage(atlas, os.path.join(tmpdir, "page"), "png", s, feedback)
+            if res == QgsLayoutExporter.Canceled or (feedback is not None and feedback.isCanceled()):
+                raise Cancelled("cancelled by the user")
             if res != QgsLayoutExporter.Success:
                 raise ChannelHabitatError(f"the PNG pages could not be written ({_result_text(res)}): {err}",
                                           "PNG_FOLDER")

@@ -234,3 +234,15 @@ def test_shipped_templates_and_styles(qgis_app):
         lyr = QgsVectorLayer(f"{geom}?crs=EPSG:28355" + "".join(f"&field={f}:{t}" for f, t in fields), "t",
                              "memory")
         layouts.apply_qml(lyr, name)
+
+
+def test_cancel_leaves_no_output(run_alg, data, tmp_path):
+    fb = QgsProcessingFeedback()
+    # cancel as soon as the export reports progress (the PAGES output is written by then)
+    fb.progressChanged.connect(lambda value: fb.cancel() if value > 0 else None)
+    with pytest.raises(QgsProcessingException, match="[Cc]ancel"):
+        run_alg("mappanels", base_params(data, tmp_path), feedback=fb)
+    assert not (tmp_path / "panels.pdf").exists()
+    assert not (tmp_path / "pages.gpkg").exists()
+    assert not list(tmp_path.rglob("*.png"))
+    assert not list(tmp_path.rglob(".partial-*"))

@@ -200,6 +200,22 @@ def test_bad_inputs(run_alg, tmp_path):
                                       "COMMUNITY_SUMMARY": "TEMPORARY_OUTPUT"})
 
 
+def test_cancel_leaves_no_output(run_alg, tmp_path):
+    from qgis.core import QgsProcessingFeedback
+
+    d, s, _ = run_rasters(tmp_path, "weir", 6.0)
+    veg = _gpkg(tmp_path / "veg.gpkg", STANDS, ATTRS)
+    fb = QgsProcessingFeedback()
+    fb.cancel()
+    with pytest.raises(QgsProcessingException, match="[Cc]ancel"):
+        run_alg("vegetationoverlay", {"VEGETATION": veg, "DEPTH": d, "SPEED": s,
+                                      "VEGETATION_STATS": str(tmp_path / "stats.gpkg"),
+                                      "COMMUNITY_SUMMARY": str(tmp_path / "summary.gpkg"),
+                                      "REPORT": str(tmp_path / "veg.html")}, feedback=fb)
+    for name in ("stats.gpkg", "summary.gpkg", "veg.html"):
+        assert not (tmp_path / name).exists()
+
+
 @pytest.mark.slow
 def test_demo_wetted_share_follows_pool_level(run_alg, sample_dir, tmp_path):
     # plausibility on the invented demo (not a reference): at the lowest discharge, a higher pool

@@ -117,7 +117,8 @@ def grouped_weighted_percentiles(values, weights, groups, n_groups: int, q, orde
 
     Elements with a group outside [0, n_groups), a non-finite value or no weight are ignored.
     ``vorder`` (from :func:`value_order`) or ``order`` (from :func:`group_order` with the same
-    validity) may be passed to save sorting.
+    validity) may be passed to save sorting. When every weight is 1 (a raster: weight = cell area /
+    cell area) the positions in the sorted sample are found directly, without cumulative weights.
     """
     values = np.asarray(values)
     weights = np.asarray(weights, dtype=np.float64)
@@ -125,22 +126,43 @@ def grouped_weighted_percentiles(values, weights, groups, n_groups: int, q, orde
     out = np.full((n_groups, len(q)), np.nan)
     if values.size == 0 or n_groups == 0:
         return out
-    valid = np.isfinite(values) & (weights > 0)
+    finite = np.isfinite(values)
+    positive = weights > 0
+    valid = None if (finite.all() and positive.all()) else (finite & positive)
     key = group_keys(groups, n_groups, valid)
     if order is None:
         if vorder is None:
             vorder = value_order(values)
-        order = vorder[np.argsort(key[vorder], kind="stable")]
+        perm = np.argsort(key[vorder], kind="stable")  # radix sort of small keys: cheap
+    else:
+        vorder, perm = order, None
     counts = np.bincount(key, minlength=n_groups + 1)[:n_groups]
     n_used = int(counts.sum())
     if n_used == 0:
         return out
-    order = order[:n_used]
-    cw = np.cumsum(weights[order])
+
+    def element(k):  # element index at positions k of the group-then-value order
+        return vorder[perm[k]] if perm is not None else vorder[k]
+
     ends = np.cumsum(counts)
     starts = ends - counts
     gi = np.nonzero(counts > 0)[0]
     s, e = starts[gi], ends[gi]
+    unit = bool(np.all(weights[positive] == 1.0)) if valid is not None else bool(np.all(weights == 1.0))
+    if unit:
+        total = counts[gi].astype(np.float64)
+        for j, qq in enumerate(q):
+            h = (total - 1.0) * qq / 100.0
+            j0 = np.floor(h)
+            frac = h - j0
+            k0 = s + j0.astype(np.int64)
+            k1 = np.minimum(k0 + 1, e - 1)
+            v0 = values[element(k0)].astype(np.float64)
+            v1 = values[element(k1)].astype(np.float64)
+            out[gi, j] = v0 + (v1 - v0) * frac
+        return out
+    order_used = element(np.arange(n_used))
+    cw = np.cumsum(weights[order_used])
     base = np.where(s > 0, cw[np.maximum(s - 1, 0)], 0.0)
     total = cw[e - 1] - base
     for j, qq in enumerate(q):
@@ -151,8 +173,8 @@ def grouped_weighted_percentiles(values, weights, groups, n_groups: int, q, orde
         k1 = np.searchsorted(cw, base + j0 + 1.0, side="right")
         k0 = np.clip(k0, s, e - 1)
         k1 = np.clip(k1, s, e - 1)
-        v0 = values[order[k0]].astype(np.float64)
-        v1 = values[order[k1]].astype(np.float64)
+        v0 = values[order_used[k0]].astype(np.float64)
+        v1 = values[order_used[k1]].astype(np.float64)
         out[gi, j] = v0 + (v1 - v0) * frac
     return out
 
@@ -291,6 +313,31 @@ def _combined_sums(groupings, quantities, max_cells: int = 1 << 22):
     return out
 
 
+def _class_sums(groupings, cls_key, area, n_cls: int, max_cells: int = 1 << 22):
+    """Per grouping, an (n_groups, n_cls) table of class areas, from one weighted bincount over
+    (combined group key, class)."""
+    sizes = [g.n_groups + 1 for g in groupings]
+    total = int(np.prod(sizes, dtype=np.float64)) * (n_cls + 1)
+    if total <= max_cells:
+        combo = np.zeros(len(cls_key), dtype=np.int64)
+        for g, size in zip(reversed(groupings), reversed(sizes)):
+            combo *= size
+            combo += g.key
+        combo *= n_cls + 1
+        combo += cls_key
+        t = np.bincount(combo, weights=area, minlength=total).reshape(sizes[::-1] + [n_cls + 1])
+        nd = len(groupings)
+        out = []
+        for i, g in enumerate(groupings):
+            axis_i = nd - 1 - i
+            other = tuple(a for a in range(nd) if a != axis_i)
+            out.append(t.sum(axis=other)[: g.n_groups, 1:])
+        return out
+    return [np.bincount(g.key.astype(np.int64) * (n_cls + 1) + cls_key, weights=area,
+                        minlength=(g.n_groups + 1) * (n_cls + 1)).reshape(g.n_groups + 1, n_cls + 1)[: g.n_groups, 1:]
+            for g in groupings]
+
+
 def summarise_groupings(speed, depth, area, codes, groupings, class_names, weight_unit: float, froude=None,
                         vorders=None, percentiles: bool = True, threads: int = 2) -> list:
     """:func:`summarise` for several groupings of the same elements at once, sharing the work.
@@ -330,34 +377,26 @@ def summarise_groupings(speed, depth, area, codes, groupings, class_names, weigh
             ax *= x
             yield ax
             del ax, x
-        for k in range(1, n_cls + 1):
-            yield np.where(codes == k, area, 0.0)
 
     sums = _combined_sums(groupings, quantities())
+    if n_cls:
+        cls_key = np.where((codes >= 1) & (codes <= n_cls), codes, 0).astype(np.int64)
+        for gi, ca in enumerate(_class_sums(groupings, cls_key, area, n_cls)):
+            sums[gi].extend(ca.T)
     # --- percentiles ---------------------------------------------------------------------------
     w = area / float(weight_unit)
-    equal = bool(w.size) and bool(np.all(w == 1.0))
     pct = [dict() for _ in groupings]
     if percentiles:
         pvars = [(var, vals) for var, vals, _ in variables[:2]]
-        if equal:
-            jobs = [(gi, var, vals) for gi in range(len(groupings)) for var, vals in pvars]
-            for g in groupings:
-                g.perm  # noqa: B018 - build orders before the threads share them
+        if vorders is None or vorders[0] is None:
+            vorders = value_orders([vals for _, vals in pvars], threads=threads)
+        jobs = [(gi, var, vals, vo) for gi in range(len(groupings)) for (var, vals), vo in zip(pvars, vorders)]
 
-            def run(job):
-                gi, var, vals = job
-                g = groupings[gi]
-                return grouped_percentiles(vals, g.groups, g.n_groups, PERCENTILES, perm=g.perm, counts=g.counts)
-        else:
-            if vorders is None or vorders[0] is None:
-                vorders = value_orders([vals for _, vals in pvars], threads=threads)
-            jobs = [(gi, var, vals, vo) for gi in range(len(groupings)) for (var, vals), vo in zip(pvars, vorders)]
+        def run(job):
+            gi, var, vals, vo = job
+            g = groupings[gi]
+            return grouped_weighted_percentiles(vals, w, g.groups, g.n_groups, PERCENTILES, vorder=vo)
 
-            def run(job):
-                gi, var, vals, vo = job
-                g = groupings[gi]
-                return grouped_weighted_percentiles(vals, w, g.groups, g.n_groups, PERCENTILES, vorder=vo)
         results = _pool_map(run, jobs, threads if speed.size >= 200_000 else 1)
         for job, res in zip(jobs, results):
             pct[job[0]][job[1]] = res

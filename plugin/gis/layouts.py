@@ -683,6 +683,7 @@ def export_layout(layout: QgsPrintLayout, pdf_path: str | None, png_dir: str | N
                 raise Cancelled("cancelled by the user")
             if res != QgsLayoutExporter.Success:
                 raise ChannelHabitatError(f"the PDF could not be written ({_result_text(res)}): {err}", "PDF")
+            _chmod_default(tmp)
             os.replace(tmp, pdf_path)
             pdf_out = pdf_path
         finally:
@@ -710,6 +711,13 @@ def export_layout(layout: QgsPrintLayout, pdf_path: str | None, png_dir: str | N
         finally:
             shutil.rmtree(tmpdir, ignore_errors=True)
     return pdf_out, pngs
+
+
+def _chmod_default(path: str) -> None:
+    """Give a file made by mkstemp (mode 0600) the mode a plain new file gets (0666 less umask)."""
+    mask = os.umask(0)
+    os.umask(mask)
+    os.chmod(path, 0o666 & ~mask)
 
 
 def _result_text(res) -> str:

@@ -6,6 +6,7 @@ class colours from core/classes.py VELOCITY_COLOURS as written into the syntheti
 """
 
 import math
+import os
 import re
 import shutil
 import subprocess
@@ -97,6 +98,9 @@ def test_zone_pages_pdf_png_and_pages(run_alg, data, tmp_path):
     # three zones (equal thirds by default) -> three pages
     pages, size = pdf_pages(res["PDF"])
     assert pages == 3 == res["PAGE_COUNT"]
+    mask = os.umask(0)
+    os.umask(mask)
+    assert os.stat(res["PDF"]).st_mode & 0o777 == 0o666 & ~mask  # an ordinary file, not mkstemp's 0600
     assert size == pytest.approx((A4_MM[0] / 25.4 * 72, A4_MM[1] / 25.4 * 72), abs=1.0)  # ISO 216 A4
     text = pdf_text(res["PDF"])
     for name in NAMES:

@@ -214,7 +214,8 @@ banks, axis and km posts use neutral colours that do not compete with the classe
         # layers (panel copies: inputs are never restyled)
         crs = axis_crs if axis_crs.isValid() else QgsCoordinateReferenceSystem(reach.axis.crs_wkt)
         hab = layouts.panel_copy(habitat)
-        kind, legend_title = layouts.style_habitat(hab, scheme, feedback)
+        in_project = context.project() is not None and context.project().mapLayer(habitat.id()) is not None
+        kind, legend_title = layouts.style_habitat(hab, scheme, feedback, from_project=in_project)
         posts_src = self.parameterAsVectorLayer(parameters, "POSTS", context)
         if posts_src is not None:
             if posts_src.fields().indexOf("label") < 0:
@@ -247,7 +248,8 @@ banks, axis and km posts use neutral colours that do not compete with the classe
         extras = []
         for lyr in self.parameterAsLayerList(parameters, "EXTRA_LAYERS", context):
             c = layouts.panel_copy(lyr)
-            layouts.style_extra(c, scheme)
+            layouts.style_extra(c, scheme, context.project() is not None
+                                and context.project().mapLayer(lyr.id()) is not None)
             extras.append(c)
 
         data_note = self.parameterAsString(parameters, "DATA_NOTE", context).strip() or _data_note(

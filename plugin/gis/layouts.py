@@ -801,9 +801,16 @@ def scheme_title(scheme) -> str:
     return {"velocity": "Velocity class", "froude": "Mesohabitat (Jowett 1993)"}.get(scheme.name, "Habitat class")
 
 
-def style_habitat(layer, scheme, feedback=None) -> tuple:
-    """Style the panel copy of the main layer; (kind, legend title)."""
+def style_habitat(layer, scheme, feedback=None, from_project: bool = False) -> tuple:
+    """Style the panel copy of the main layer; (kind, legend title). Class layers take the scheme's
+    colours. Other layers keep their style: the one they have in the project, or for a layer read
+    from a file the style stored with it (a .qml beside it, or the GeoPackage's default style, as
+    compareregimes writes them); a change raster without any gets a diverging ramp."""
     kind = habitat_kind(layer)
+    if kind in ("change_raster", "other") and not from_project:
+        _, loaded = layer.loadDefaultStyle()
+        if loaded and feedback is not None:
+            feedback.pushInfo(f"{layer.name()}: drawn with the style stored with it")
     if kind == "class_raster":
         names = [c.name for c in scheme.classes]
         filled = raster_classes(layer.source(), names)
@@ -814,6 +821,10 @@ def style_habitat(layer, scheme, feedback=None) -> tuple:
         style_class_raster(layer, filled, scheme)
         return kind, scheme_title(scheme)
     if kind == "change_raster":
+        renderer = layer.renderer()
+        if renderer is not None and renderer.type() not in ("singlebandgray", "multibandcolor"):
+            # a style came with the raster (e.g. compareregimes' .qml beside it): keep its colours
+            return kind, layer.name()
         limit = style_change_raster(layer)
         if feedback is not None:
             feedback.pushInfo(f"{layer.name()}: a raster without a class colour table, drawn as a change "
@@ -825,11 +836,13 @@ def style_habitat(layer, scheme, feedback=None) -> tuple:
     return kind, layer.name()
 
 
-def style_extra(layer, scheme) -> None:
-    """Extra layers keep their style, except class layers (a ``class`` field) which take the scheme's
-    colours (e.g. vegetationoverlay EDGES)."""
+def style_extra(layer, scheme, from_project: bool = False) -> None:
+    """Extra layers keep their style (a file's stored style when not from the project), except class
+    layers (a ``class`` field) which take the scheme's colours (e.g. vegetationoverlay EDGES)."""
     if isinstance(layer, QgsVectorLayer) and layer.fields().indexOf("class") >= 0:
         style_class_vector(layer, scheme)
+    elif not from_project:
+        layer.loadDefaultStyle()
 
 
 def posts_layer(crs, chainage, x, y, labels) -> QgsVectorLayer:

@@ -182,6 +182,28 @@ def test_change_raster_diverging_legend(run_alg, data, tmp_path):
     assert "3 456 ML/d (40 m³/s)" in text  # 40 * 86400 / 1000 = 3456
 
 
+def test_change_raster_keeps_its_own_style(run_alg, data, tmp_path):
+    # a raster that comes with a style (a .qml beside it, as compareregimes writes) keeps that style
+    from qgis.core import QgsRasterLayer
+
+    from plugin.gis.layouts import style_change_raster
+
+    tif = tmp_path / "own_change.tif"
+    shutil.copy(data["change"], tif)
+    lyr = QgsRasterLayer(str(tif), "own")
+    style_change_raster(lyr, limit=0.4, unit="m/s")
+    fn = lyr.renderer().shader().rasterShaderFunction()
+    items = fn.colorRampItemList()
+    for it in items:
+        it.label = f"own label {it.value:+.1f}"
+    fn.setColorRampItemList(items)
+    lyr.saveNamedStyle(str(tmp_path / "own_change.qml"))
+    del lyr
+    res = run_alg("mappanels", base_params(data, tmp_path, HABITAT=str(tif), PNG_FOLDER=None))
+    text = pdf_text(res["PDF"])
+    assert "own label +0.4" in text and "(faster)" not in text
+
+
 def test_layout_kept_in_project(run_alg, data, tmp_path):
     project = QgsProject()
     context = QgsProcessingContext()

@@ -369,7 +369,6 @@ class PolylineIndex:
     def _build_tables(self, cap: float, margin: float) -> _Tables:
         h = float(max(min(cap / 8.0, self.length / 64.0), 0.5))
         seg, plen, first, count, ex, ey, e_along = _segment_pieces(self.vx, self.vy, h)
-        n_p = len(seg)
         nseg = self.n_seg
         ids = np.arange(nseg)
         wlo = np.searchsorted(self.cum, self.cum[:-1] - margin, side="right") - 1
@@ -644,7 +643,6 @@ class PolylineIndex:
 
     def _buckets(self, X, Y, spacing):
         """Buckets of the points and the chainage at each occupied bucket's corners."""
-        n = len(X)
         x0, x1 = float(X.min()), float(X.max())
         y0, y1 = float(Y.min()), float(Y.max())
         w, hgt = max(x1 - x0, 1e-6), max(y1 - y0, 1e-6)
@@ -796,7 +794,8 @@ class PolylineIndex:
             s = seg[vert]
             k = s + (along[vert] > 0)  # the vertex
             sd = side[vert]
-            pa = tb.piece_first[np.clip(k - 1, 0, self.n_seg - 1)] + tb.piece_count[np.clip(k - 1, 0, self.n_seg - 1)] - 1
+            sa = np.clip(k - 1, 0, self.n_seg - 1)
+            pa = tb.piece_first[sa] + tb.piece_count[sa] - 1
             pb = tb.piece_first[np.clip(k, 0, self.n_seg - 1)]
             vs = tb.v_side[k]
             end = vs == 2  # beyond an end: both sides' capsules of the end piece, and the half-plane

@@ -368,3 +368,17 @@ def test_pool_benches_wet_only_when_the_pool_is_raised(sample_dir):
     normal, raised = wet_fraction("weir"), wet_fraction("weir_raised")
     assert np.all(raised > 0.5)
     assert np.all(normal < raised - 0.3)
+
+
+def test_natural_profile_is_near_uniform_far_from_the_weir(sample_dir):
+    # Common practice, no source: far upstream of any control the flow tends to normal depth, so the
+    # water surface runs parallel to the bed (here the bank tops, which follow the mean bed).
+    with open(Path(sample_dir) / "profiles.csv", newline="") as fh:
+        rows = [r for r in csv.DictReader(fh) if r["regime"] == "natural"]
+    for q in ("3000", "14000", "40000"):
+        r = [x for x in rows if x["q_mld"] == q]
+        c = np.array([float(x["chainage_m"]) for x in r])
+        far = (c > 1000.0) & (c < 10000.0)  # 25-34 km upstream of the weir
+        wse = np.polyfit(c[far], [float(x["wse_m"]) for x, f in zip(r, far) if f], 1)[0]
+        bed = np.polyfit(c[far], [float(x["bank_top_m"]) for x, f in zip(r, far) if f], 1)[0]
+        assert wse / bed == pytest.approx(1.0, abs=0.1), q

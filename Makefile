@@ -46,7 +46,11 @@ $(STAGE)/.stamp: tools/stage_plugin.sh metadata.txt $(wildcard plugin/*)
 ## ---- the demo reach and the demo ------------------------------------------------------
 sample: setup $(SAMPLE_STAMP)
 
-$(SAMPLE_STAMP): $(wildcard sample_gis/*.py) $(wildcard plugin/core/*.py)
+# The generator uses only these plugin modules; other core edits do not regenerate the sample.
+SAMPLE_DEPS  := $(wildcard sample_gis/*.py) plugin/core/reach.py plugin/core/locate.py plugin/core/units.py \
+                plugin/core/errors.py plugin/gis/geotiff.py
+
+$(SAMPLE_STAMP): $(SAMPLE_DEPS)
 	$(PY) -m sample_gis.generate --out $(SAMPLE_DIR)
 
 demo: sample

@@ -71,6 +71,12 @@ def read(path: str, band: int = 1, window=None):
     return arr, inf
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def _temp_beside(path: str, suffix: str = ".tif") -> str:
     d = os.path.dirname(os.path.abspath(path)) or "."
     os.makedirs(d, exist_ok=True)
@@ -117,6 +123,7 @@ def write(path: str, array: np.ndarray, transform, crs_wkt: str, nodata=None, co
         del band
         ds.FlushCache()
         ds = None
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600 files; give the usual permissions
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):

@@ -294,8 +294,11 @@ def open_ugrid(path: str, param: str = "MESH") -> UgridMesh:
         crs = _crs_of_ugrid(ds, xv)
         groups = {}
         pending = {}
+        coordinate_vars = {xname, yname}
+        for attr in ("face_coordinates", "edge_coordinates", "node_coordinates"):
+            coordinate_vars.update(str(getattr(topo, attr, "")).split())
         for name, var in ds.variables.items():
-            if getattr(var, "mesh", None) != topo.name or name in (xname, yname):
+            if getattr(var, "mesh", None) != topo.name or name in coordinate_vars:
                 continue
             loc = getattr(var, "location", "")
             if loc not in ("face", "node"):

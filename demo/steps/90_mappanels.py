@@ -4,7 +4,8 @@ Panels come last: they draw what the other steps make. For each regime the veloc
 from maphabitat (run here on the demo rasters, so the step stands on its own), the reach axis and
 km posts from buildreach (the demo centreline is digitised downstream to upstream on purpose;
 buildreach orients it). Each regime gets one page per reach zone (A4) and an atlas of 3 km pages
-along the river (A4, maps rotated to follow the channel); PDF and PNG pages.
+along the river (A4, maps rotated to follow the channel, with the water beside the bank vegetation
+from vegetationoverlay's EDGES drawn over the stands); PDF and PNG pages.
 """
 
 from __future__ import annotations
@@ -76,11 +77,16 @@ def run(demo):
     for regime in REGIMES:
         stem = f"{regime}_q{DISCHARGE_MLD:05d}"
         classes = demo.path("mappanels", regime, f"{stem}_classes.tif")
+        depth = str(rasters / regime / f"q{DISCHARGE_MLD:05d}_depth.tif")
+        speed = str(rasters / regime / f"q{DISCHARGE_MLD:05d}_speed.tif")
         demo.run("maphabitat", {
-            "DEPTH": str(rasters / regime / f"q{DISCHARGE_MLD:05d}_depth.tif"),
-            "SPEED": str(rasters / regime / f"q{DISCHARGE_MLD:05d}_speed.tif"),
-            "CENTRELINE": axis, "CLASSES": classes, "PATCHES": "TEMPORARY_OUTPUT",
+            "DEPTH": depth, "SPEED": speed, "CENTRELINE": axis, "CLASSES": classes, "PATCHES": "TEMPORARY_OUTPUT",
             "SEGMENT_STATS": "TEMPORARY_OUTPUT", "ZONE_STATS": "TEMPORARY_OUTPUT", "REPORT": None})
+        # the water beside the bank vegetation, drawn over the classes
+        edges = demo.run("vegetationoverlay", {
+            "VEGETATION": str(demo.sample / "vegetation.gpkg"), "DEPTH": depth, "SPEED": speed, "REGIME": regime,
+            "DISCHARGE": DISCHARGE_MLD, "VEGETATION_STATS": "TEMPORARY_OUTPUT", "COMMUNITY_SUMMARY": "TEMPORARY_OUTPUT",
+            "EDGES": demo.path("mappanels", regime, f"{stem}_vegetation_edges.gpkg"), "REPORT": None})["EDGES"]
         common = {
             "HABITAT": classes, "CENTRELINE": axis, "BANKS": str(demo.sample / "channel.gpkg"),
             "VEGETATION": str(demo.sample / "vegetation.gpkg"), "REGIME": regime, "DISCHARGE": DISCHARGE_MLD,
@@ -92,7 +98,7 @@ def run(demo):
             "PNG_FOLDER": _folder(demo, "mappanels", regime, "zones"),
             "PAGES": demo.path("mappanels", regime, f"{stem}_zone_pages.gpkg")})
         atlas = demo.run("mappanels", {
-            **common, "PAGES_MODE": 1, "PAGE_LENGTH": 3000.0,
+            **common, "PAGES_MODE": 1, "PAGE_LENGTH": 3000.0, "EXTRA_LAYERS": [edges],
             "PDF": demo.path("mappanels", regime, f"{stem}_atlas.pdf"),
             "PNG_FOLDER": _folder(demo, "mappanels", regime, "atlas"),
             "PAGES": demo.path("mappanels", regime, f"{stem}_atlas_pages.gpkg")})

@@ -248,9 +248,9 @@ banks, axis and km posts use neutral colours that do not compete with the classe
         extras = []
         for lyr in self.parameterAsLayerList(parameters, "EXTRA_LAYERS", context):
             c = layouts.panel_copy(lyr)
-            layouts.style_extra(c, scheme, context.project() is not None
-                                and context.project().mapLayer(lyr.id()) is not None)
-            extras.append(c)
+            name = layouts.style_extra(c, scheme, context.project() is not None
+                                       and context.project().mapLayer(lyr.id()) is not None)
+            extras.append((c, name))
 
         data_note = self.parameterAsString(parameters, "DATA_NOTE", context).strip() or _data_note(
             habitat, scheme, kind, reach, crs, posts_src is not None,
@@ -270,7 +270,7 @@ banks, axis and km posts use neutral colours that do not compete with the classe
 
         habitat_item = layouts.PanelLayer(hab, legend_title)
         stack = [layouts.PanelLayer(posts, "Chainage post (km along the reach axis)")]
-        stack += [layouts.PanelLayer(e, e.name()) for e in extras]
+        stack += [layouts.PanelLayer(e, name) for e, name in extras]
         if veg_outline is not None:
             stack.append(layouts.PanelLayer(veg_outline))
         stack.append(layouts.PanelLayer(axis, "Reach axis (centreline)"))

@@ -67,6 +67,7 @@ from qgis.core import (
     QgsRendererCategory,
     QgsScaleBarSettings,
     QgsSimpleFillSymbolLayer,
+    QgsSimpleLineSymbolLayer,
     QgsSingleBandPseudoColorRenderer,
     QgsSingleSymbolRenderer,
     QgsTextBufferSettings,
@@ -350,10 +351,11 @@ def _class_symbol(geom_type, colour: str):
         return QgsFillSymbol.createSimple({"color": colour, "outline_color": colour, "outline_width": "0.05",
                                            "outline_width_unit": "MM"})
     if geom_type == QgsWkbTypes.LineGeometry:
-        sym = QgsLineSymbol.createSimple({"line_color": INK, "line_width": "1.5", "line_width_unit": "MM",
-                                          "capstyle": "round"})
-        inner = QgsLineSymbol.createSimple({"line_color": colour, "line_width": "1.0", "line_width_unit": "MM",
-                                            "capstyle": "round"}).symbolLayer(0).clone()
+        sym = QgsLineSymbol.createSimple({"line_color": INK, "line_width": "1.2", "line_width_unit": "MM",
+                                          "capstyle": "flat"})
+        inner = QgsSimpleLineSymbolLayer(QColor(colour), 0.8)
+        inner.setWidthUnit(QgsUnitTypes.RenderMillimeters)
+        inner.setPenCapStyle(Qt.FlatCap)
         sym.appendSymbolLayer(inner)
         return sym
     return QgsMarkerSymbol.createSimple({"color": colour, "outline_color": INK, "size": "2.4"})
@@ -836,13 +838,20 @@ def style_habitat(layer, scheme, feedback=None, from_project: bool = False) -> t
     return kind, layer.name()
 
 
-def style_extra(layer, scheme, from_project: bool = False) -> None:
+EDGE_FIELDS = ("stand_id", "class", "length_m")  # vegetationoverlay EDGES
+
+
+def style_extra(layer, scheme, from_project: bool = False) -> str:
     """Extra layers keep their style (a file's stored style when not from the project), except class
-    layers (a ``class`` field) which take the scheme's colours (e.g. vegetationoverlay EDGES)."""
+    layers (a ``class`` field) which take the scheme's colours (e.g. vegetationoverlay EDGES).
+    Returns the layer's legend name."""
     if isinstance(layer, QgsVectorLayer) and layer.fields().indexOf("class") >= 0:
         style_class_vector(layer, scheme)
+        if all(layer.fields().indexOf(f) >= 0 for f in EDGE_FIELDS):
+            return "Water beside the vegetation|(class of the nearest water)"  # '|' wraps in the legend
     elif not from_project:
         layer.loadDefaultStyle()
+    return layer.name()
 
 
 def posts_layer(crs, chainage, x, y, labels) -> QgsVectorLayer:

@@ -204,6 +204,32 @@ def test_change_raster_keeps_its_own_style(run_alg, data, tmp_path):
     assert "own label +0.4" in text and "(faster)" not in text
 
 
+def test_edges_layer_on_top(run_alg, data, tmp_path):
+    # a vegetationoverlay EDGES-like line layer: class colours, its own legend entry
+    from osgeo import ogr, osr
+
+    srs = osr.SpatialReference()
+    srs.ImportFromEPSG(28355)
+    path = str(tmp_path / "edges.gpkg")
+    ds = ogr.GetDriverByName("GPKG").CreateDataSource(path)
+    lyr = ds.CreateLayer("edges", srs, ogr.wkbLineString)
+    for name, kind in (("stand_id", ogr.OFTInteger), ("class", ogr.OFTString), ("length_m", ogr.OFTReal)):
+        lyr.CreateField(ogr.FieldDefn(name, kind))
+    line = data["line"]
+    for i, cls in enumerate(NAMES):
+        piece = line.parallel_offset(60, "left") if i % 2 else line.parallel_offset(60, "right")
+        f = ogr.Feature(lyr.GetLayerDefn())
+        f.SetField("stand_id", i + 1)
+        f.SetField("class", cls)
+        f.SetField("length_m", piece.length)
+        f.SetGeometry(ogr.CreateGeometryFromWkt(piece.wkt))
+        lyr.CreateFeature(f)
+    ds = None
+    res = run_alg("mappanels", base_params(data, tmp_path, EXTRA_LAYERS=[path], PNG_FOLDER=None))
+    text = pdf_text(res["PDF"])
+    assert "Water beside the vegetation" in text and "(class of the nearest water)" in text
+
+
 def test_layout_kept_in_project(run_alg, data, tmp_path):
     project = QgsProject()
     context = QgsProcessingContext()

@@ -120,7 +120,8 @@ def run(demo):
         layer = QgsMeshLayer(str(mesh), "weir mesh", "mdal")
         out = _outputs(demo, "weir_mesh_vs_raster")
         res = demo.run("compareregimes", {
-            "BASE_DEPTH": str(rasters / "weir" / f"{Q}_depth.tif"), "BASE_SPEED": str(rasters / "weir" / f"{Q}_speed.tif"),
+            "BASE_DEPTH": str(rasters / "weir" / f"{Q}_depth.tif"),
+            "BASE_SPEED": str(rasters / "weir" / f"{Q}_speed.tif"),
             "ALT_MESH": layer, "BASE_NAME": "weir rasters", "ALT_NAME": "weir mesh",
             "CENTRELINE": cl, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "", **out})
         union = res["WET_BOTH_M2"] + res["WET_BASE_ONLY_M2"] + res["WET_ALT_ONLY_M2"]

@@ -14,21 +14,18 @@ from qgis.core import (
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterField,
-    QgsProcessingParameterFile,
     QgsProcessingParameterFileDestination,
     QgsProcessingParameterNumber,
     QgsProcessingParameterString,
     QgsWkbTypes,
 )
 
-from ..core import scenario as scn
 from ..core import vegetation as veg
 from ..core.errors import ChannelHabitatError
-from ..core.field import require_wet
 from ..core.habitat import check_metric_crs
 from ..core.units import to_m3s, to_mld
-from ..gis import layouts, outputs, runinput, schemeinput, vegetationio
-from ..gis.runs import read_run, same_crs
+from ..gis import layouts, outputs, runinput, scenarioinput, scenariorun, schemeinput, vegetationio
+from ..gis.runs import same_crs
 from ..gis.vegetationreport import build_report
 from .base import ChannelHabitatAlgorithm
 
@@ -51,10 +48,11 @@ id). Invalid polygons are repaired for the calculation (the layer is not changed
 are left out and counted. The polygons are reprojected to the runs' CRS when they differ.</li>
 <li>Runs: one run (<b>DEPTH</b> with <b>SPEED</b> or <b>VELOCITY_U</b>/<b>VELOCITY_V</b> rasters, or a
 <b>MESH</b> with its groups) labelled with <b>REGIME</b> and <b>DISCHARGE</b>/<b>DISCHARGE_UNIT</b>; and/or a
-<b>SCENARIOS</b> table (CSV: regime, discharge, unit, depth, speed or u and v, or mesh and groups) for all
-regimes at once, optionally narrowed with <b>SCENARIO_REGIMES</b> (e.g. <code>weir, weir_raised</code>) and
-<b>SCENARIO_DISCHARGES</b> (e.g. <code>3000, 5000</code>, in DISCHARGE_UNIT). All runs must share one
-projected CRS in metres. <b>WET_DEPTH</b> (m, default 0.05): shallower is dry.</li>
+<b>SCENARIOS</b> table (a CSV file or a table layer: regime, discharge, unit, depth, speed or u and v, or mesh
+and groups) for all regimes at once, optionally narrowed with <b>REGIMES</b> (e.g. <code>weir, weir_raised</code>)
+and <b>SCENARIO_DISCHARGES</b> (e.g. <code>3000, 5000</code>, in DISCHARGE_UNIT); <b>PARALLEL_RUNS</b>
+(advanced, default 2) runs are worked on at the same time. All runs must share one projected CRS in metres.
+<b>WET_DEPTH</b> (m, default 0.05): shallower is dry.</li>
 <li><b>SCHEME</b>, <b>CLASS_TABLE</b>, <b>CLASS_FILE</b>: the water classes (default: very slow / slow /
 moderate / fast velocity classes).</li>
 <li><b>EDGE_DISTANCE</b> (m, default 10): how far from a stand's boundary water still counts as beside it.
@@ -102,11 +100,8 @@ each change of class.</p>
             optional=True, minValue=0.0))
         self.addParameter(QgsProcessingParameterEnum("DISCHARGE_UNIT", "Discharge unit", list(UNITS),
                                                      defaultValue=0))
-        self.addParameter(QgsProcessingParameterFile(
-            "SCENARIOS", "Scenario table (CSV) [instead of, or besides, the single run]",
-            QgsProcessingParameterFile.File, fileFilter="CSV files (*.csv *.txt)", optional=True))
-        self.addParameter(QgsProcessingParameterString(
-            "SCENARIO_REGIMES", "Only these regimes of the table (comma-separated) [empty: all]", optional=True))
+        scenarioinput.add_scenario_parameters(
+            self, optional=True, label="Scenario table (CSV file or table layer) [instead of, or with, the single run]")
         self.addParameter(QgsProcessingParameterString(
             "SCENARIO_DISCHARGES", "Only these discharges of the table (comma-separated, DISCHARGE_UNIT) "
             "[empty: all]", optional=True))
@@ -136,40 +131,34 @@ each change of class.</p>
         return self.compute(parameters, context, feedback)
 
     # ------------------------------------------------------------------------------------------
-    def _runs(self, parameters, context):
-        """[(run columns, RunSource or None)] — None stands for the single run of the parameters."""
+    def _single(self, parameters, context):
+        """Run columns of the single run, or None when no single run is given."""
+        if not any(parameters.get(k) not in (None, "") for k in ("DEPTH", "SPEED", "VELOCITY_U", "VELOCITY_V",
+                                                                   "MESH")):
+            return None
         unit = UNITS[self.parameterAsEnum(parameters, "DISCHARGE_UNIT", context)]
-        runs = []
-        single = any(parameters.get(k) not in (None, "") for k in ("DEPTH", "SPEED", "VELOCITY_U", "VELOCITY_V",
-                                                                     "MESH"))
-        if single:
-            q_raw = parameters.get("DISCHARGE")
-            q = None if q_raw in (None, "") else self.parameterAsDouble(parameters, "DISCHARGE", context)
-            runs.append(({"regime": self.parameterAsString(parameters, "REGIME", context).strip(),
-                          "q_mld": float(to_mld(q, unit)) if q else float("nan"),
-                          "q_m3s": float(to_m3s(q, unit)) if q else float("nan"), "run": ""}, None))
-        path = self.parameterAsFile(parameters, "SCENARIOS", context)
-        if path:
-            rows = scn.read_scenarios(path)
-            regimes = [r.strip() for r in self.parameterAsString(parameters, "SCENARIO_REGIMES", context).split(",")
-                       if r.strip()]
-            qtext = self.parameterAsString(parameters, "SCENARIO_DISCHARGES", context)
-            qs = [float(to_mld(v, unit, "SCENARIO_DISCHARGES")) for v in _numbers(qtext, "SCENARIO_DISCHARGES")]
-            unknown = [r for r in regimes if r not in scn.regimes_of(rows)]
-            if unknown:
-                raise ChannelHabitatError(f"regime(s) {', '.join(unknown)} are not in the scenario table (it has "
-                                          f"{', '.join(scn.regimes_of(rows))})", "SCENARIO_REGIMES")
-            picked = [r for r in rows if (not regimes or r.regime in regimes)
-                      and (not qs or any(abs(r.q_mld - q) <= 1e-6 * q for q in qs))]
-            if not picked:
-                raise ChannelHabitatError("no row of the scenario table matches SCENARIO_REGIMES and "
-                                          "SCENARIO_DISCHARGES", "SCENARIO_DISCHARGES")
-            for r in picked:
-                runs.append(({"regime": r.regime, "q_mld": r.q_mld, "q_m3s": r.q_m3s, "run": r.label}, r))
-        if not runs:
-            raise ChannelHabitatError("give a run (depth and speed rasters, or a mesh) or a scenario table",
-                                      "SCENARIOS")
-        return runs
+        q_raw = parameters.get("DISCHARGE")
+        q = None if q_raw in (None, "") else self.parameterAsDouble(parameters, "DISCHARGE", context)
+        return {"regime": self.parameterAsString(parameters, "REGIME", context).strip(),
+                "q_mld": float(to_mld(q, unit)) if q else math.nan,
+                "q_m3s": float(to_m3s(q, unit)) if q else math.nan, "run": ""}
+
+    def _table(self, parameters, context):
+        """(rows, parallel runs) of the scenario table after the regime and discharge filters; ([], 0)
+        without a table."""
+        if not scenarioinput.scenarios_given(parameters):
+            return [], 0
+        rows, _, workers = scenarioinput.read_scenario_parameters(self, parameters, context)
+        unit = UNITS[self.parameterAsEnum(parameters, "DISCHARGE_UNIT", context)]
+        qs = [float(to_mld(v, unit, "SCENARIO_DISCHARGES"))
+              for v in _numbers(self.parameterAsString(parameters, "SCENARIO_DISCHARGES", context),
+                                "SCENARIO_DISCHARGES")]
+        if qs:
+            rows = [r for r in rows if any(abs(r.q_mld - q) <= 1e-6 * q for q in qs)]
+        if not rows:
+            raise ChannelHabitatError("no row of the scenario table matches REGIMES and SCENARIO_DISCHARGES",
+                                      "SCENARIO_DISCHARGES")
+        return rows, workers
 
     def compute(self, parameters, context, feedback):
         source = self.parameterAsSource(parameters, "VEGETATION", context)
@@ -179,57 +168,66 @@ each change of class.</p>
         distance = self.parameterAsDouble(parameters, "EDGE_DISTANCE", context)
         step = self.parameterAsDouble(parameters, "EDGE_STEP", context) or None
         wet = self.parameterAsDouble(parameters, runinput.WET_DEPTH, context)
-        runs = self._runs(parameters, context)
+        single = self._single(parameters, context)
+        rows, workers = self._table(parameters, context)
+        if single is None and not rows:
+            raise ChannelHabitatError("give a run (depth and speed rasters, or a mesh) or a scenario table",
+                                      "SCENARIOS")
 
-        # --- compute: one run at a time (memory stays one run) --------------------------------------
-        results, notes = [], []
-        stands_src = overlay = None
-        crs_wkt = ""
-        n = len(runs)
-        for i, (cols, row) in enumerate(runs):
-            progress = self.progress(feedback, 0.9 * i / n, 0.9 * (i + 1) / n)
-            if row is None:
-                fld, src = runinput.read_run_parameters(self, parameters, context, feedback,
-                                                        progress=progress.sub(0.0, 0.4))
-                cols["regime"] = cols["regime"] or src.label
-                cols["run"] = cols["regime"] + (f" {cols['q_mld']:g} ML/d" if math.isfinite(cols["q_mld"]) else "")
-            else:
-                with scn.row_errors(row):
-                    fld = read_run(row.source, wet, progress.sub(0.0, 0.4), require=False)
-                    require_wet(fld, "SCENARIOS")
-            param = "SCENARIOS" if row is not None else "DEPTH"
-            check_metric_crs(fld.crs_wkt, param)
-            if overlay is None:
-                crs_wkt = fld.crs_wkt
-                stands_src = vegetationio.read_stands(source, comm_field, id_field, crs_wkt, context)
-                overlay = veg.VegetationOverlay(stands_src.stands, distance, step)
-                notes += stands_src.stands.notes
-                if stands_src.skipped:
-                    notes.append(f"{stands_src.skipped} vegetation feature(s) without geometry were left out.")
-            elif not same_crs(crs_wkt, fld.crs_wkt):
-                raise ChannelHabitatError(f"run '{cols['run']}' is in another CRS than the first run; all runs "
-                                          "must share one CRS (reproject the odd files)", param)
-            feedback.pushInfo(f"Run {i + 1} of {n}: {cols['run']} ({fld.n} wet elements)")
+        # --- read: the single run, the table's CRS, the stands in that CRS ------------------------
+        fld = None
+        infos = scenariorun.preflight(rows) if rows else []
+        if single is not None:
+            fld, src = runinput.read_run_parameters(self, parameters, context, feedback,
+                                                    progress=self.progress(feedback, 0.0, 0.05))
+            check_metric_crs(fld.crs_wkt, "DEPTH")
+            single["regime"] = single["regime"] or src.label
+            single["run"] = single["regime"] + (f" {single['q_mld']:g} ML/d" if math.isfinite(single["q_mld"]) else "")
+            if infos and not same_crs(fld.crs_wkt, infos[0].crs_wkt):
+                raise ChannelHabitatError("the single run and the scenario table are in different CRS; reproject "
+                                          "one of them", "SCENARIOS")
+        crs_wkt = fld.crs_wkt if fld is not None else infos[0].crs_wkt
+        stands_src = vegetationio.read_stands(source, comm_field, id_field, crs_wkt, context)
+        overlay = veg.VegetationOverlay(stands_src.stands, distance, step)
+        notes = list(stands_src.stands.notes)
+        if stands_src.skipped:
+            notes.append(f"{stands_src.skipped} vegetation feature(s) without geometry were left out.")
+
+        # --- compute --------------------------------------------------------------------------------
+        results = []
+        if fld is not None:
+            feedback.pushInfo(f"{single['run']}: {fld.n:,} wet elements")
             codes = scheme.classify(fld.depth, fld.speed)
-            res = overlay.run(fld, codes, scheme.names, progress.sub(0.4, 1.0))
-            results.append((cols, res))
+            results.append((single, overlay.run(fld, codes, scheme.names, self.progress(feedback, 0.05, 0.3))))
             del fld
-        table = veg.stand_table(stands_src.stands, results)
+        if rows:
+            def work(run):
+                codes = scheme.classify(run.field.depth, run.field.speed)
+                return overlay.run(run.field, codes, scheme.names, run.progress)
+
+            table = scenariorun.run_scenarios(rows, work, wet_depth_m=wet, workers=workers, infos=infos,
+                                              progress=self.progress(feedback, 0.3 if single else 0.0, 0.9),
+                                              log=feedback.pushInfo)
+            notes += table.notes
+            for row, res in zip(rows, table.results):
+                results.append(({"regime": row.regime, "q_mld": row.q_mld, "q_m3s": row.q_m3s, "run": row.label},
+                                res))
+        table_cols = veg.stand_table(stands_src.stands, results)
         run_keys = ["regime", "q_mld", "q_m3s", "run"]
-        summary = veg.community_summary(table, run_keys)
+        summary = veg.community_summary(table_cols, run_keys)
         edge_cols, edge_geoms = _edge_table(stands_src.stands, results)
         for note in notes:
             feedback.pushInfo(note)
         report_path = self.parameterAsFileOutput(parameters, "REPORT", context)
-        report = build_report(table, summary, scheme, distance, notes) if report_path else None
+        report = build_report(table_cols, summary, scheme, distance, notes) if report_path else None
 
         # --- write ----------------------------------------------------------------------------------
         self.progress(feedback, 0.9, 1.0)(0.0, "writing outputs")
         crs = stands_src.crs if stands_src.crs.isValid() else QgsCoordinateReferenceSystem.fromWkt(crs_wkt)
         geoms = [vegetationio.as_multi(g) for _ in results for g in stands_src.geometries]
         out = {}
-        out["VEGETATION_STATS"] = outputs.write_features(self, parameters, context, "VEGETATION_STATS", table, geoms,
-                                                         crs, QgsWkbTypes.MultiPolygon)
+        out["VEGETATION_STATS"] = outputs.write_features(self, parameters, context, "VEGETATION_STATS", table_cols,
+                                                         geoms, crs, QgsWkbTypes.MultiPolygon)
         outputs.style_on_load(context, out["VEGETATION_STATS"], func=vegetationio.wet_pct_style,
                               layer_name="Vegetation: wetted share")
         out["COMMUNITY_SUMMARY"] = outputs.write_features(self, parameters, context, "COMMUNITY_SUMMARY", summary)

@@ -31,6 +31,7 @@ Community summary
 from __future__ import annotations
 
 import math
+import threading
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -366,13 +367,18 @@ class VegetationOverlay:
         self.distance = float(edge_distance_m)
         self.step_m = step_m
         self._cache: dict = {}
+        self._lock = threading.Lock()  # runs may come from several threads (gis/scenariorun)
         self.area_m2 = shapely.area(stands.geometries)
         self.perimeter_m = shapely.length(shapely.boundary(stands.geometries))
 
     def _geometry(self, support, progress) -> _GeometryCache:
         key = support.geometry_key()
-        if key in self._cache:
+        with self._lock:  # one thread computes a grid's overlaps; the others wait and reuse them
+            if key not in self._cache:
+                self._cache[key] = self._compute_geometry(support, progress)
             return self._cache[key]
+
+    def _compute_geometry(self, support, progress) -> _GeometryCache:
         elements = elements_of(support)
         step = self.step_m or min(elements.size / 4.0, self.distance / 4.0)
         geoms = self.stands.geometries
@@ -388,10 +394,8 @@ class VegetationOverlay:
             pa.append(area)
             near.append(elements.overlap(zones[i], areas=False)[0])
         near_ids = np.unique(np.concatenate(near)) if near else np.zeros(0, np.int64)
-        cache = _GeometryCache(elements, np.concatenate(ps), np.concatenate(pe), np.concatenate(pa),
-                               near_ids, elements.polygons(near_ids), boundary_pieces(geoms, step), step)
-        self._cache[key] = cache
-        return cache
+        return _GeometryCache(elements, np.concatenate(ps), np.concatenate(pe), np.concatenate(pa),
+                              near_ids, elements.polygons(near_ids), boundary_pieces(geoms, step), step)
 
     def run(self, fld: HydraulicField, codes: np.ndarray, class_names, progress=None) -> StandResult:
         """Overlay one run. ``codes``: class code (1..N, 0 = unclassified) of each wet element."""

@@ -181,8 +181,8 @@ def test_scenario_table_regimes_and_reprojection(run_alg, tmp_path):
     for sid, g in enumerate(STANDS, start=1):
         # a round trip through the datum change moves vertices by well under a millimetre here
         assert raised[sid] == pytest.approx(shapely.intersection(g, water).area, rel=1e-4, abs=0.05)
-    with pytest.raises(QgsProcessingException, match="SCENARIO_REGIMES"):
-        run_alg("vegetationoverlay", {"VEGETATION": veg, "SCENARIOS": str(table), "SCENARIO_REGIMES": "natural",
+    with pytest.raises(QgsProcessingException, match="REGIMES"):
+        run_alg("vegetationoverlay", {"VEGETATION": veg, "SCENARIOS": str(table), "REGIMES": "natural",
                                       "VEGETATION_STATS": "TEMPORARY_OUTPUT", "COMMUNITY_SUMMARY": "TEMPORARY_OUTPUT"})
 
 
@@ -222,7 +222,7 @@ def test_demo_wetted_share_follows_pool_level(run_alg, sample_dir, tmp_path):
     # wets more bank vegetation (the reed benches near the weir sit just above the normal pool)
     res = run_alg("vegetationoverlay", {
         "VEGETATION": str(sample_dir / "vegetation.gpkg"), "SCENARIOS": str(sample_dir / "scenarios.csv"),
-        "SCENARIO_REGIMES": "weir_lowered, weir, weir_raised", "SCENARIO_DISCHARGES": "3000", "EDGES": None,
+        "REGIMES": "weir_lowered, weir, weir_raised", "SCENARIO_DISCHARGES": "3000", "EDGES": None,
         "REPORT": None, "VEGETATION_STATS": str(tmp_path / "stats.gpkg"),
         "COMMUNITY_SUMMARY": str(tmp_path / "summary.gpkg")})
     _, feats = _features(res["VEGETATION_STATS"])

@@ -158,12 +158,12 @@ balance, charts of the change of every class along chainage, median speeds of bo
         # --- compute ------------------------------------------------------------------------------
         aligned = resample.align_runs(base, alt, cell, progress=self.progress(feedback, 0.16, 0.3),
                                       alt_parameter=alt_param)
-        notes = [crs_note] * bool(crs_note) + aligned.notes + resample.coverage_notes(base, alt) + notes
-        for n in notes:
-            if "reprojected" in n or "outside" in n:
-                feedback.pushWarning(n)
-            else:
-                feedback.pushInfo(n)
+        warnings = [crs_note] * bool(crs_note) + aligned.warnings + resample.coverage_notes(base, alt)
+        for n in warnings:
+            feedback.pushWarning(n)
+        for n in aligned.notes + notes:
+            feedback.pushInfo(n)
+        notes = warnings + aligned.notes + notes
         feedback.pushInfo(aligned.method_text)
         cmp = compare.compare_runs(aligned.base, aligned.alt, reach, scheme, aligned.base_stats, aligned.alt_stats,
                                    progress=self.progress(feedback, 0.3, 0.6), alt_parameter=alt_param)
@@ -233,6 +233,9 @@ balance, charts of the change of every class along chainage, median speeds of bo
                                       layer_name=title)
             results[key] = path
         progress(0.3)
+        if not isinstance(cmp.union.support, MeshSupport) and parameters.get("MESH_CHANGE") is not None:
+            feedback.pushInfo("MESH_CHANGE is written only for two runs on the same mesh; here the change is in the "
+                              "rasters.")
         if isinstance(cmp.union.support, MeshSupport) and parameters.get("MESH_CHANGE") is not None:
             results["MESH_CHANGE"] = outputs.write_features(
                 self, parameters, context, "MESH_CHANGE", compare.element_table(cmp), polys, crs, QgsWkbTypes.Polygon)

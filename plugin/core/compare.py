@@ -28,6 +28,7 @@ base); ``chg_pct_<class>`` is in percentage points of each run's own wet area.
 from __future__ import annotations
 
 import copy
+import dataclasses
 import math
 from dataclasses import dataclass, field
 
@@ -174,12 +175,18 @@ def pair_fields(base: HydraulicField, alt: HydraulicField, alt_parameter: str = 
 
 
 def subset_location(loc, positions):
-    """A copy of a ``Location`` (any dataclass of per-element arrays) for the elements at ``positions``."""
+    """A copy of a ``Location`` (a dataclass or plain object holding per-element arrays) for the elements at
+    ``positions``; scalars (e.g. counts) are kept as they are."""
     n = len(loc.chainage)
+    if dataclasses.is_dataclass(loc):
+        names = [f.name for f in dataclasses.fields(loc)]
+    else:
+        names = list(getattr(loc, "__dict__", {})) or [k for k in getattr(loc, "__slots__", ())]
     out = copy.copy(loc)
-    for name, value in vars(loc).items():
+    for name in names:
+        value = getattr(loc, name, None)
         if isinstance(value, np.ndarray) and value.ndim >= 1 and value.shape[0] == n:
-            setattr(out, name, value[positions])
+            object.__setattr__(out, name, value[positions])
     return out
 
 

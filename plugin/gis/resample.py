@@ -42,7 +42,8 @@ class AlignedRuns:
     alt_stats: HydraulicField | None = None
     cell_m: float | None = None  # cell of the common grid
     reprojected: bool = False
-    notes: list = field(default_factory=list)
+    notes: list = field(default_factory=list)  # information (resampled wet areas, ...)
+    warnings: list = field(default_factory=list)  # what the user must know (reprojection)
 
 
 def _kind(fld: HydraulicField) -> str:
@@ -122,11 +123,11 @@ def align_runs(base: HydraulicField, alt: HydraulicField, cell_m: float = 0.0, p
     """The two runs on the same support (see the module docstring). ``cell_m`` > 0 sets the common grid's
     cell; it also forces the common grid when the runs share a grid or mesh."""
     progress = as_progress(progress)
-    notes = []
+    notes, warnings = [], []
     dst = base.crs_wkt
     reproj = not regrid.crs_equal(base.crs_wkt, alt.crs_wkt)
     if reproj:
-        notes.append(f"The alternative run is in {crs_name(alt.crs_wkt)} and the base run in {crs_name(dst)}: the "
+        warnings.append(f"The alternative run is in {crs_name(alt.crs_wkt)} and the base run in {crs_name(dst)}: the "
                      "alternative was reprojected to the base run's CRS (rasters by GDAL warp, nearest neighbour; "
                      "meshes by transforming their node coordinates with PROJ).")
     from ..core.compare import same_support
@@ -135,10 +136,10 @@ def align_runs(base: HydraulicField, alt: HydraulicField, cell_m: float = 0.0, p
         if isinstance(base.support, GridSupport):
             text = (f"Both runs are on the same {abs(base.support.transform[1]):g} m grid: compared cell by cell, "
                     "without resampling.")
-            return AlignedRuns(base, alt, "same grid", text, notes=notes)
+            return AlignedRuns(base, alt, "same grid", text, notes=notes, warnings=warnings)
         text = (f"Both runs are on the same mesh ({len(base.support.face_nodes):,} faces): compared face by face, "
                 "without resampling.")
-        return AlignedRuns(base, alt, "same mesh", text, notes=notes)
+        return AlignedRuns(base, alt, "same mesh", text, notes=notes, warnings=warnings)
 
     # --- the common grid ---------------------------------------------------------------------------
     alt_nodes = None
@@ -211,7 +212,7 @@ def align_runs(base: HydraulicField, alt: HydraulicField, cell_m: float = 0.0, p
         notes.append("The alternative run's CRS is not in metres: its statistics are taken from the common grid "
                      "(in the base run's CRS).")
     progress(1.0)
-    return AlignedRuns(gb, ga, "common grid", text, base_stats, alt_stats, cell, reproj, notes)
+    return AlignedRuns(gb, ga, "common grid", text, base_stats, alt_stats, cell, reproj, notes, warnings)
 
 
 def _metric(wkt: str) -> bool:

@@ -155,7 +155,8 @@ def class_area_rows(cmp: Comparison) -> dict:
 
 
 def headlines(cmp: Comparison, base_name: str, alt_name: str) -> list:
-    """Plain sentences: the wet area and the largest class changes in the whole reach and each zone."""
+    """Plain sentences: the wet area, the change of every class's area (and share, in percentage points) and the
+    median speed, in the whole reach and each zone."""
     out = []
     names = cmp.scheme.names
     units = [("Whole reach", cmp.reach_change, 0)] + [(f"Zone '{z}'", cmp.zone_change, i)
@@ -165,13 +166,19 @@ def headlines(cmp: Comparison, base_name: str, alt_name: str) -> list:
         rel = f" ({_signed(100.0 * (aw - bw) / bw, '.1f')} %)" if bw > 0 else ""
         parts = [f"{label}: wet area {bw / HA:,.1f} ha under {base_name}, {aw / HA:,.1f} ha under {alt_name}{rel}"]
         ch = [(float(t[f"chg_area_{stats.field_key(n)}_m2"][i]), n) for n in names]
-        ch = [c for c in ch if np.isfinite(c[0])]
-        ch.sort(key=lambda c: -abs(c[0]))
-        for v, n in ch[:2]:
-            k = stats.field_key(n)
-            pp = float(t[f"chg_pct_{k}"][i])
-            pp_text = f", {_signed(pp, '.1f')} {PP} of the wet area" if np.isfinite(pp) else ""
-            parts.append(f"{n} water {_signed(v / HA, ',.1f')} ha{pp_text}")
+        absent = {n for n in names if not (float(t[f"base_pct_{stats.field_key(n)}"][i]) > 0 or
+                                           float(t[f"alt_pct_{stats.field_key(n)}"][i]) > 0)}
+        ch = [c for c in ch if np.isfinite(c[0]) and c[1] not in absent]  # classes in neither run: left out
+        if len(ch) > 6:  # long schemes: the four largest changes, in scheme order
+            keep = {n for _, n in sorted(ch, key=lambda c: -abs(c[0]))[:4]}
+            ch = [c for c in ch if c[1] in keep]
+        cls = []
+        for v, n in ch:
+            pp = float(t[f"chg_pct_{stats.field_key(n)}"][i])
+            pp_text = f" ({_signed(pp, '.1f')} {PP})" if np.isfinite(pp) else ""
+            cls.append(f"{n} {_signed(v / HA, ',.1f')} ha{pp_text}")
+        if cls:
+            parts.append("class areas: " + ", ".join(cls))
         med = float(t["chg_v_p50_ms"][i])
         if np.isfinite(med):
             parts.append(f"median speed {float(t['base_v_p50_ms'][i]):.2f} → {float(t['alt_v_p50_ms'][i]):.2f} m/s")

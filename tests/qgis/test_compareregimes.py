@@ -209,6 +209,13 @@ def test_a_known_slowing_gives_the_known_transitions(run_alg, channel):
         assert r["chg_v_p50_ms"] == pytest.approx(np.percentile(sa[sel], 50) - np.percentile(sb[sel], 50), abs=1e-6)
         assert r["chg_v_p90_ms"] == pytest.approx(np.percentile(sa[sel], 90) - np.percentile(sb[sel], 90), abs=1e-6)
         assert r["chg_wet_area_m2"] == 0
+    # the report says it in words: the upper zone's change in fast water, from the rasters
+    page = Path(res["REPORT"]).read_text(encoding="utf-8")
+    up = wet & (ch < 500.0)
+    d_fast = ((fa[up] == 4).sum() - (fb[up] == 4).sum()) * cell / 1e4
+    d_pp = 100.0 * (np.mean(fa[up] == 4) - np.mean(fb[up] == 4))
+    assert f"fast \u2212{abs(d_fast):.1f} ha (\u2212{abs(d_pp):.1f} pp)" in page
+    assert "wet area 2.0 ha under today, 2.0 ha under slower" in page
     # styles are stored with the layers
     assert QgsVectorLayer(res["TRANSITIONS"], "t", "ogr").renderer().type() == "categorizedSymbol"
     assert QgsVectorLayer(res["SEGMENT_CHANGE"], "s", "ogr").renderer().type() == "graduatedSymbol"

@@ -34,19 +34,23 @@ needs about (path length) / (C h) steps whatever its speed.
 
 Stopping rules (``fate``)
 -------------------------
-* ``downstream``: the particle reached the end chainage (the last chainage of the reach axis unless
-  another is given); the crossing time is interpolated linearly in chainage within the last step,
-  using exact chainages from the axis. A particle that leaves the wet area within the downstream
-  band (default 10 element sizes) of the downstream end of the wet field also counts as having
-  left through the model's downstream boundary.
+* ``downstream``: the particle reached the end chainage: the last chainage of the reach axis unless
+  another is given, or - when the wet field of the run ends further upstream - five element sizes
+  upstream of the field's end (the last cross-sections fully inside the model). The crossing point
+  and time within the last step come from the step's cubic Hermite path and exact axis chainages.
 * ``upstream``: left the wet area upstream of its release chainage.
-* ``stranded``: entered a dry or no-data element (a bank, bar or island).
+* ``stranded``: met a bank (a dry or no-data element inside the model) and stopped there: at the first
+  contact with the ``strand`` bank rule; with the default ``slide`` rule only when it cannot slide on
+  (eight contacts in a row without moving, e.g. a current straight into the bank).
 * ``outside``: left the extent of the grid or mesh away from the reach ends.
 * ``time_limit``: still drifting at the maximum travel time (its times are lower bounds).
 * ``dry_release``: released on a dry element; not tracked.
-A step that would end on a dry element is first retried at one eighth of the step (so a particle
-that merely clips a corner continues); if that also ends dry, the exit point is found by bisection
-along the short step and the particle stops there.
+Where a step would end out of the water, the point where it meets the wet edge is found by
+bisection along the step. Bank rule ``slide`` (default): the rest of the step is projected on the
+wet edge met (the crossed side of a raster cell, or of a mesh face) and the particle moves on along
+the bank - the no-flux condition of a bank in a depth-averaged model; bank contacts are counted.
+Bank rule ``strand``: the step is first retried at one eighth of its length (so a particle that only
+clips a corner continues), and a particle that still meets the edge stops there.
 
 Residence accounting
 --------------------
@@ -94,7 +98,9 @@ FATE_TEXT = {
 RK4_WEIGHTS = (1.0 / 6.0, 1.0 / 3.0, 1.0 / 3.0, 1.0 / 6.0)
 RK4_WEIGHTS_ARRAY = np.array(RK4_WEIGHTS)
 RETRY_FACTOR = 0.125
-BISECTION_STEPS = 14
+BISECTION_STEPS = 12
+STUCK_LIMIT = 8  # bank contacts in a row without sliding on: the particle is stranded
+BANK_RULES = ("slide", "strand")
 DEFAULT_T_MAX_S = 30.0 * SECONDS_PER_DAY
 DEFAULT_PATH_SPACING_M = 20.0
 PATH_MAX_GAP_S = SECONDS_PER_HOUR
@@ -182,6 +188,10 @@ class AnalyticFlow:
 
     def outside(self, x, y) -> np.ndarray:
         return np.zeros(np.shape(x), bool)
+
+    def bank_moves(self, xw, yw, xd, yd, rx, ry) -> list:
+        """No bank geometry: a particle at the edge of an analytic wet area cannot slide."""
+        return []
 
     def element_size(self, where) -> np.ndarray:
         return np.full(np.shape(where), self.size_m)
@@ -285,12 +295,62 @@ class GridFlow:
         return FlowSample(vals[1], vals[2], vals[3] if values >= 3 else None,
                           vals[4] if values >= 4 else None, wet, np.where(wet, cs, -1))
 
+    def _cell(self, x, y):
+        x0, y0, dx, dy, rows, cols = self.raster
+        return (np.floor((np.asarray(x, dtype=np.float64) - x0) / dx),
+                np.floor((np.asarray(y, dtype=np.float64) - y0) / dy))
+
     def outside(self, x, y) -> np.ndarray:
         """Points in no cell of the raster (same cell convention as :meth:`sample`)."""
-        x0, y0, dx, dy, rows, cols = self.raster
-        c = np.floor((np.asarray(x, dtype=np.float64) - x0) / dx)
-        r = np.floor((np.asarray(y, dtype=np.float64) - y0) / dy)
+        c, r = self._cell(x, y)
+        rows, cols = self.raster[4], self.raster[5]
         return (c < 0) | (c >= cols) | (r < 0) | (r >= rows)
+
+    def wet_weight(self, x, y) -> np.ndarray:
+        """The bilinear interpolation of the wet indicator (1 wet, 0 dry) - a smooth picture of the
+        wet edge, whose gradient points into the water across the cell staircase of a bank."""
+        n = np.size(x)
+        g = np.empty((2, n))
+        g[0] = x
+        g[1] = y
+        g *= self._scale
+        g += self._shift
+        g0 = np.floor(g)
+        f = g - g0
+        k = (g0[1] * self.nc + g0[0]).astype(np.int64)
+        wet = (np.take(self.slot, self._offsets + k, mode="clip") > 0).astype(np.float64)
+        p = np.empty((2, 2, n))
+        np.subtract(1.0, f, out=p[0])
+        p[1] = f
+        w = (p[:, None, 1, :] * p[None, :, 0, :]).reshape(4, n)
+        return (w * wet).sum(axis=0)
+
+    def bank_moves(self, xw, yw, xd, yd, rx, ry) -> list:
+        """Candidate moves along the wet edge for a particle that met it between the last wet point
+        (xw, yw) and the first dry point (xd, yd), with (rx, ry) of its step left.
+
+        First: the rest of the step without its component into the bank, the bank's direction taken
+        from the gradient of :meth:`wet_weight` (so a particle follows a bank drawn as a staircase of
+        cells), nudged a hundredth of a cell into the water. Then: along the side of the wet cell
+        that was crossed (at a corner: along y, then along x)."""
+        e = 0.25 * self.size_m
+        gx = (self.wet_weight(xw + e, yw) - self.wet_weight(xw - e, yw)) / (2 * e)
+        gy = (self.wet_weight(xw, yw + e) - self.wet_weight(xw, yw - e)) / (2 * e)
+        norm = np.hypot(gx, gy)
+        has = norm > 0
+        nx_ = np.where(has, gx / np.where(has, norm, 1.0), 0.0)
+        ny_ = np.where(has, gy / np.where(has, norm, 1.0), 0.0)
+        into = np.minimum(rx * nx_ + ry * ny_, 0.0)  # component into the bank (negative)
+        nudge = 0.01 * self.size_m
+        smooth = (np.where(has, rx - into * nx_ + nudge * nx_, 0.0), np.where(has, ry - into * ny_ + nudge * ny_, 0.0))
+        cw, rw = self._cell(xw, yw)
+        cd, rd = self._cell(xd, yd)
+        vert = cw != cd  # crossed a side parallel to y
+        horz = rw != rd
+        zero = np.zeros_like(rx)
+        along_side = (np.where(vert, zero, rx), np.where(vert, ry, zero))
+        corner = (np.where(vert & horz, rx, zero), zero)
+        return [smooth, along_side, corner]
 
 
 def _polygon_edges(node_x, node_y, face_nodes):
@@ -340,7 +400,8 @@ class MeshFlow:
         self.neighbours[f2, e_col[order[pair + 1]]] = f1
         cx = np.where(valid, ax, 0.0).sum(axis=1) / valid.sum(axis=1)
         cy = np.where(valid, ay, 0.0).sum(axis=1) / valid.sum(axis=1)
-        self._tree = cKDTree(np.column_stack([cx, cy]))
+        self._centroid = np.column_stack([cx, cy])
+        self._tree = cKDTree(self._centroid)
         if face_area is None:
             cross = np.where(valid, ax * by - bx * ay, 0.0)
             face_area = np.abs(cross.sum(axis=1)) / 2.0
@@ -437,6 +498,32 @@ class MeshFlow:
         """Points in no face of the mesh."""
         return self.locate(x, y) < 0
 
+    def bank_moves(self, xw, yw, xd, yd, rx, ry) -> list:
+        """The move along the wet edge: the rest of the step (rx, ry) projected on the side of the
+        last wet face nearest the last wet point (the side the particle met)."""
+        face = self.locate(xw, yw)
+        ok = face >= 0
+        f = np.where(ok, face, 0)
+        ax, ay, bx, by = self.ax[f], self.ay[f], self.bx[f], self.by[f]
+        ex, ey = bx - ax, by - ay
+        l2 = ex * ex + ey * ey
+        px, py = xw[:, None], yw[:, None]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            t = np.clip(((px - ax) * ex + (py - ay) * ey) / l2, 0.0, 1.0)
+        d2 = (ax + t * ex - px) ** 2 + (ay + t * ey - py) ** 2
+        d2 = np.where(l2 > 0, d2, np.inf)
+        j = np.argmin(d2, axis=1)
+        k = np.arange(face.size)
+        length = np.sqrt(l2[k, j])
+        tx, ty = ex[k, j] / length, ey[k, j] / length
+        proj = np.where(ok, rx * tx + ry * ty, 0.0)
+        # a hundredth of the face size off the side, into the face (towards its centroid)
+        cx, cy = self._centroid[f, 0], self._centroid[f, 1]
+        qx, qy = -ty, tx
+        sign = np.sign((cx - xw) * qx + (cy - yw) * qy)
+        nudge = np.where(ok, 0.01 * self.size[f] * sign, 0.0)
+        return [(proj * tx + nudge * qx, proj * ty + nudge * qy)]
+
 
 def flow_from_field(fld: HydraulicField, chainage) -> GridFlow | MeshFlow:
     """The velocity field of a run (u and v needed), with the chainage of every element."""
@@ -517,6 +604,7 @@ class DriftResult:
     fate: np.ndarray
     path_length_m: np.ndarray
     n_steps: np.ndarray
+    bank_contacts: np.ndarray
     time_s: np.ndarray
     paths: list
     class_names: list
@@ -661,6 +749,27 @@ def _crossing(chainage_of, end_m, x0, y0, u0, v0, c0, x1, y1, u1, v1, wet1, c1, 
     return s, px, py
 
 
+def _slide(flow, xw, yw, xd, yd, rx, ry):
+    """(x, y, moved): each particle moved along the wet edge by the first of the flow's candidate
+    moves (whole, half or quarter) that ends in the water; unmoved particles stay at (xw, yw).
+    ``moved`` is False also for a move shorter than a hundredth of the step left plus twice the
+    nudge off the bank (a current straight into the bank)."""
+    nx_, ny_ = xw.copy(), yw.copy()
+    done = np.zeros(xw.size, bool)
+    for mx, my in flow.bank_moves(xw, yw, xd, yd, rx, ry):
+        for f in (1.0, 0.5, 0.25):
+            todo = np.flatnonzero(~done & ((mx != 0) | (my != 0)))
+            if todo.size == 0:
+                break
+            px, py = xw[todo] + f * mx[todo], yw[todo] + f * my[todo]
+            ok = flow.sample(px, py, None, 2).wet
+            idx = todo[ok]
+            nx_[idx], ny_[idx] = px[ok], py[ok]
+            done[idx] = True
+    moved = done & (np.hypot(nx_ - xw, ny_ - yw) >= 0.01 * np.hypot(rx, ry) + 0.02 * flow.typical_size_m)
+    return nx_, ny_, moved
+
+
 def _take(sample: FlowSample, sel) -> FlowSample:
     return FlowSample(*(None if a is None else a[sel] for a in sample))
 
@@ -673,18 +782,19 @@ def _put(dst: FlowSample, sel, src: FlowSample) -> None:
 
 def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zone_edges=None, zone_names=None,
           t_max_s: float = DEFAULT_T_MAX_S, step: StepRule | None = None,
-          path_spacing_m: float | None = DEFAULT_PATH_SPACING_M, downstream_band_m: float | None = None,
-          field_end_m: float | None = None, progress=None) -> DriftResult:
+          path_spacing_m: float | None = DEFAULT_PATH_SPACING_M, bank: str = "slide",
+          progress=None) -> DriftResult:
     """Move particles from (seed_x, seed_y) until they stop (module docstring: stopping rules).
 
     ``exact_chainage(x, y)``: the axis chainage of points (``ReachAxis.locate``), used at the end
     crossing and for exits; defaults to the flow's own (analytic flows). ``zone_edges``: chainages
-    of the zone boundaries (one zone = the whole reach by default). ``field_end_m``: the largest
-    chainage of the wet field (default ``end_m``) - exits within ``downstream_band_m`` of
-    min(end_m, field_end_m) count as reaching the downstream end.
+    of the zone boundaries (one zone = the whole reach by default). ``bank``: 'slide' or 'strand'.
     """
     progress = as_progress(progress)
     step = step or StepRule()
+    if bank not in BANK_RULES:
+        raise ChannelHabitatError(f"unknown bank rule '{bank}' (use {' or '.join(BANK_RULES)})", "BANK_CONTACT")
+    slide = bank == "slide"
     if not t_max_s > 0:
         raise ChannelHabitatError("the maximum travel time must be positive", "MAX_TIME_DAYS")
     if exact_chainage is None:
@@ -702,8 +812,6 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
     nz = len(zone_edges) - 1
     inner_edges = zone_edges[1:-1]
     h_typ = flow.typical_size_m
-    band = float(downstream_band_m) if downstream_band_m is not None else 10.0 * h_typ
-    end_eff = min(end_m, field_end_m) if field_end_m is not None else end_m
     spacing = float(path_spacing_m) if path_spacing_m else 0.0
     rec = _Recorder(spacing, PATH_MAX_GAP_S)
 
@@ -714,6 +822,7 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
     end_ch = np.full(n, np.nan)
     plen = np.zeros(n)
     nsteps = np.zeros(n, dtype=np.int64)
+    bank = np.zeros(n, dtype=np.int64)
     time_s = np.zeros((n, nz, ncls))
 
     s0 = flow.sample(seed_x, seed_y)
@@ -728,6 +837,8 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
     t = np.zeros(live.size)
     cur = _take(s0, live)
     acc = np.zeros((live.size, nz, ncls))
+    contacts = np.zeros(live.size, dtype=np.int64)
+    stuck = np.zeros(live.size, dtype=np.int64)
     length = np.zeros(live.size)
     steps = np.zeros(live.size, dtype=np.int64)
     rel = release_ch[live]
@@ -780,24 +891,31 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
                 c_old = np.asarray(exact_chainage(x[ci], y[ci]), dtype=np.float64)
                 f, px, py = _crossing(exact_chainage, end_m, x[ci], y[ci], cur.u[ci], cur.v[ci], c_old,
                                       xn[ci], yn[ci], nxt.u[ci], nxt.v[ci], nxt.wet[ci], c_new[hit], dt[ci])
+                # a step that met a bank before the end is handled as a bank contact first
+                q = 1.0 - 1e-6
+                wet_before = flow.sample(x[ci] + q * (px - x[ci]), y[ci] + q * (py - y[ci]), cur.where[ci], 2).wet
+                ci, f, px, py = ci[wet_before], f[wet_before], px[wet_before], py[wet_before]
                 frac[ci] = f
                 xn[ci], yn[ci] = px, py
                 stop[ci] = FATE_DOWNSTREAM
         # a step that ends out of the water: retry shorter; else find the exit
         bad = np.flatnonzero(~nxt.wet & (stop < 0))
         if bad.size:
-            dt_r = dt[bad] * RETRY_FACTOR
-            cb = _take(cur, bad)
-            xr, yr, st_r = _rk4(flow, x[bad], y[bad], cb.where, cb.u, cb.v, dt_r, stage_values)
-            nr = flow.sample(xr, yr, cb.where)
-            dt[bad] = dt_r
-            xn[bad], yn[bad] = xr, yr
-            for full, part in zip(stages, st_r):
-                _put(full, bad, part)
-            _put(nxt, bad, nr)
-            still = bad[~nr.wet]
+            if slide:
+                still = bad  # slide from where the step met the edge
+            else:  # retry shorter: a particle that only clipped a corner continues
+                dt_r = dt[bad] * RETRY_FACTOR
+                cb = _take(cur, bad)
+                xr, yr, st_r = _rk4(flow, x[bad], y[bad], cb.where, cb.u, cb.v, dt_r, stage_values)
+                nr = flow.sample(xr, yr, cb.where)
+                dt[bad] = dt_r
+                xn[bad], yn[bad] = xr, yr
+                for full, part in zip(stages, st_r):
+                    _put(full, bad, part)
+                _put(nxt, bad, nr)
+                still = bad[~nr.wet]
             if still.size:
-                # bisection along the short step for the last wet point
+                # bisection along the step for the last wet point
                 lo = np.zeros(still.size)
                 hi = np.ones(still.size)
                 ex, ey = x[still], y[still]
@@ -807,14 +925,45 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
                     sm = flow.sample(ex + mid * dxs, ey + mid * dys, cur.where[still], 2)
                     lo = np.where(sm.wet, mid, lo)
                     hi = np.where(sm.wet, hi, mid)
-                outside_hi = flow.outside(ex + hi * dxs, ey + hi * dys)
+                xd, yd = ex + hi * dxs, ey + hi * dys  # first point out of the water
+                outside_hi = flow.outside(xd, yd)
+                xw, yw = ex + lo * dxs, ey + lo * dys  # last point in the water
                 frac[still] = lo
-                xn[still], yn[still] = ex + lo * dxs, ey + lo * dys
-                ch = np.asarray(exact_chainage(xn[still], yn[still]), dtype=np.float64)
+                xn[still], yn[still] = xw, yw
+                ch = np.asarray(exact_chainage(xw, yw), dtype=np.float64)
                 f = np.where(outside_hi, FATE_OUTSIDE, FATE_STRANDED)
                 f = np.where(ch < rel[still], FATE_UPSTREAM, f)
-                f = np.where(ch >= end_eff - band, FATE_DOWNSTREAM, f)
+                contact = f == FATE_STRANDED  # met a bank (a dry element inside the model)
+                contacts[still[contact]] += 1
+                if slide and contact.any():
+                    # slide along the bank: the rest of the step, projected on the wet edge
+                    ii = still[contact]
+                    rest = 1.0 - lo[contact]
+                    xs, ys, moved = _slide(flow, xw[contact], yw[contact], xd[contact], yd[contact],
+                                           rest * dxs[contact], rest * dys[contact])
+                    stuck[ii] = np.where(moved, 0, stuck[ii] + 1)
+                    go = stuck[ii] < STUCK_LIMIT
+                    gi = ii[go]
+                    xn[gi], yn[gi] = xs[go], ys[go]
+                    frac[gi] = 1.0  # the whole step elapses
+                    _put(nxt, gi, flow.sample(xn[gi], yn[gi], cur.where[gi]))
+                    fi = np.flatnonzero(contact)[go]
+                    f[fi] = -1
+                    # sliding past the end chainage: stop where the slide crossed it
+                    cs_ = np.asarray(exact_chainage(xs[go], ys[go]), dtype=np.float64)
+                    past = cs_ >= end_m
+                    if past.any():
+                        pi, fp = gi[past], fi[past]
+                        cw_ = ch[fp]
+                        g = np.clip((end_m - cw_) / np.maximum(cs_[past] - cw_, 1e-300), 0.0, 1.0)
+                        xn[pi] = xw[fp] + g * (xs[go][past] - xw[fp])
+                        yn[pi] = yw[fp] + g * (ys[go][past] - yw[fp])
+                        frac[pi] = lo[fp] + g * (1.0 - lo[fp])
+                        f[fp] = FATE_DOWNSTREAM
                 stop[still] = f
+        ok_step = np.ones(m, bool)
+        ok_step[bad] = False
+        stuck[ok_step] = 0
         dt_eff = dt * frac
         tl = (stop < 0) & (t + dt_eff >= t_max_s * (1.0 - 1e-12))
         stop[tl] = FATE_TIME_LIMIT
@@ -860,10 +1009,12 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
             plen[p] = length[di]
             nsteps[p] = steps[di]
             time_s[p] = acc[di]
+            bank[p] = contacts[di]
             keep = ~done
             pid, x, y, t = pid[keep], x[keep], y[keep], t[keep]
             cur = _take(cur, keep)
             acc, length, steps, rel = acc[keep], length[keep], steps[keep], rel[keep]
+            contacts, stuck = contacts[keep], stuck[keep]
             last_rx, last_ry, last_rt = last_rx[keep], last_ry[keep], last_rt[keep]
     fin = fate != FATE_DRY_RELEASE
     if fin.any():
@@ -871,7 +1022,7 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
     progress(1.0, "drift finished")
     return DriftResult(
         seed_x=seed_x, seed_y=seed_y, release_chainage=release_ch, end_x=end_x, end_y=end_y,
-        end_chainage=end_ch, travel_s=travel, fate=fate, path_length_m=plen, n_steps=nsteps,
+        end_chainage=end_ch, travel_s=travel, fate=fate, path_length_m=plen, n_steps=nsteps, bank_contacts=bank,
         time_s=time_s, paths=rec.paths(n), class_names=names, zone_names=zone_names,
         zone_edges=zone_edges, end_m=float(end_m), t_max_s=float(t_max_s), step=step,
         flow_kind=flow.kind, iterations=it)
@@ -1150,7 +1301,7 @@ class DriftOptions:
     end_m: float | None = None
     path_spacing_m: float | None = DEFAULT_PATH_SPACING_M
     band_fraction: float = 0.5
-    downstream_band_m: float | None = None
+    bank: str = "slide"
 
 
 @dataclass
@@ -1161,8 +1312,9 @@ class DriftRun:
     estimate: Estimate
     seed_offset: np.ndarray | None
     release_m: float
-    end_m: float
-    field_end_m: float
+    end_m: float  # where drift was followed to
+    requested_end_m: float  # the end asked for (axis end by default)
+    field_end_m: float  # downstream end of the wet field along the axis
     method: str
     notes: list = field(default_factory=list)
 
@@ -1172,6 +1324,8 @@ def extended_chainage(axis, x, y) -> np.ndarray:
     that overshoots the last cross-section still measures how far it went past it)."""
     x = np.asarray(x, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64)
+    if x.size == 0:
+        return np.zeros(0)
     c = np.array(axis.locate(x, y).chainage, dtype=np.float64)
     ends = np.array([axis.start_m, axis.end_m])
     ex, ey, ang = axis.point_at(ends)
@@ -1186,8 +1340,15 @@ METHOD_TRACKING = "particle tracking (RK4)"
 METHOD_ESTIMATE = "1D estimate"
 
 
+END_BAND_ELEMENTS = 5.0
+
+
 def reach_window(reach, chainage, element_size: float, release_m=None, end_m=None):
-    """(release, end, field_end): the chainages drift runs between (module docstring)."""
+    """(release, end, requested end, field end, notes): the chainages a run's drift runs between.
+
+    Release: ``release_m``, or one element inside the upstream end of the wet field (at most the
+    axis start). End: ``end_m`` (default the axis end); when the wet field ends further upstream,
+    :data:`END_BAND_ELEMENTS` elements upstream of the field's end instead (with a note)."""
     axis = reach.axis
     c = np.asarray(chainage, dtype=np.float64)
     c = c[np.isfinite(c)]
@@ -1198,18 +1359,27 @@ def reach_window(reach, chainage, element_size: float, release_m=None, end_m=Non
     field_end = min(float(c.max()) + element_size / 2.0, axis.end_m)
     if release_m is None:
         release_m = field_start + element_size
-    if end_m is None:
-        end_m = axis.end_m
+    requested = axis.end_m if end_m is None else float(end_m)
     if not axis.start_m <= release_m < axis.end_m:
         raise ChannelHabitatError(f"the release chainage {release_m:.0f} m is outside the reach axis "
                                   f"({axis.start_m:.0f}-{axis.end_m:.0f} m)", "RELEASE_CHAINAGE")
-    if not axis.start_m < end_m <= axis.end_m:
-        raise ChannelHabitatError(f"the end chainage {end_m:.0f} m is outside the reach axis "
+    if not axis.start_m < requested <= axis.end_m:
+        raise ChannelHabitatError(f"the end chainage {requested:.0f} m is outside the reach axis "
                                   f"({axis.start_m:.0f}-{axis.end_m:.0f} m)", "END_CHAINAGE")
-    if not end_m > release_m:
-        raise ChannelHabitatError(f"the end chainage ({end_m:.0f} m) must lie downstream of the release "
+    if not requested > release_m:
+        raise ChannelHabitatError(f"the end chainage ({requested:.0f} m) must lie downstream of the release "
                                   f"chainage ({release_m:.0f} m)", "END_CHAINAGE")
-    return float(release_m), float(end_m), field_end
+    notes = []
+    end = requested
+    if field_end < requested - element_size / 2.0:
+        end = field_end - END_BAND_ELEMENTS * element_size
+        notes.append(f"the wet field ends at chainage {field_end:.0f} m, upstream of the end chainage "
+                     f"{requested:.0f} m: drift is followed to {end:.0f} m ({END_BAND_ELEMENTS:g} elements inside "
+                     "the field's end).")
+        if end <= release_m:
+            raise ChannelHabitatError(f"the wet field ends at chainage {field_end:.0f} m, too close to the "
+                                      f"release chainage {release_m:.0f} m", "RELEASE_CHAINAGE")
+    return float(release_m), float(end), float(requested), float(field_end), notes
 
 
 def drift_run(fld: HydraulicField, reach, scheme, options: DriftOptions | None = None, location=None,
@@ -1232,22 +1402,15 @@ def drift_run(fld: HydraulicField, reach, scheme, options: DriftOptions | None =
         h = min(abs(fld.support.transform[1]), abs(fld.support.transform[5]))
     else:
         h = float(np.sqrt(np.median(fld.area))) if fld.n else 1.0
-    release_m, end_m, field_end = reach_window(reach, chain, h, options.release_m, options.end_m)
-    notes = []
-    est_end = min(end_m, field_end)
-    if est_end <= release_m:
-        raise ChannelHabitatError("the wet field ends upstream of the release chainage", "RELEASE_CHAINAGE")
+    release_m, end_m, requested_end, field_end, notes = reach_window(reach, chain, h, options.release_m,
+                                                                     options.end_m)
     est = travel_time_estimate(chain, offset, fld.speed, fld.depth, fld.area, reach.segment_edges, scheme,
-                               release_m=release_m, end_m=est_end, zone_edges=reach.zone_edges,
+                               release_m=release_m, end_m=end_m, zone_edges=reach.zone_edges,
                                zone_names=reach.zone_names, band_fraction=options.band_fraction)
     notes += est.notes
-    if est_end < end_m:
-        notes.append(f"the wet field ends at chainage {field_end:.0f} m, before the end chainage "
-                     f"{end_m:.0f} m: particles leaving it there count as reaching the downstream end, and "
-                     "the 1D estimate stops there.")
     if fld.u is None or fld.v is None:
         notes.append("the run has speed only (no velocity vectors): travel times are the 1D estimate.")
-        return DriftRun(None, est, None, release_m, end_m, field_end, METHOD_ESTIMATE, notes)
+        return DriftRun(None, est, None, release_m, end_m, requested_end, field_end, METHOD_ESTIMATE, notes)
     progress(0.02, "building the velocity field")
     flow = flow_from_field(fld, chain)
     axis = reach.axis
@@ -1270,12 +1433,11 @@ def drift_run(fld: HydraulicField, reach, scheme, options: DriftOptions | None =
         soff = axis.locate(sx, sy).offset
     res = track(flow, sx, sy, scheme, end_m=end_m, exact_chainage=exact, zone_edges=reach.zone_edges,
                 zone_names=reach.zone_names, t_max_s=options.t_max_s, step=options.step,
-                path_spacing_m=options.path_spacing_m, downstream_band_m=options.downstream_band_m,
-                field_end_m=field_end, progress=progress.sub(0.05, 1.0))
+                path_spacing_m=options.path_spacing_m, bank=options.bank, progress=progress.sub(0.05, 1.0))
     counts = res.fate_counts()
     if counts["dry_release"]:
         notes.append(f"{counts['dry_release']} seed point(s) lie on dry or no-data elements and were not tracked.")
     if counts["time_limit"]:
         notes.append(f"{counts['time_limit']} particle(s) were still drifting at the time limit "
                      f"({options.t_max_s / SECONDS_PER_DAY:g} days): their times are lower bounds.")
-    return DriftRun(res, est, soff, release_m, end_m, field_end, METHOD_TRACKING, notes)
+    return DriftRun(res, est, soff, release_m, end_m, requested_end, field_end, METHOD_TRACKING, notes)

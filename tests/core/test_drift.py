@@ -183,11 +183,27 @@ def test_fates_stranded_upstream_outside_time_limit_and_dry_release():
     # a 100 x 20 m wet strip inside a 120 x 40 m raster; flow across it towards y > 0 (the bank)
     wet = lambda x, y: (np.abs(y) < 10) & (x > 10)  # noqa: E731
     fld = grid_field(60, 20, 2.0, lambda x, y: 0.0 * x + 0.1, lambda x, y: 0.0 * x + 0.2, wet_fn=wet)
-    res = _track_grid(fld, [50.0, 30.0], [0.0, -5.0], end_m=110.0)
+    res = _track_grid(fld, [50.0, 30.0], [0.0, -5.0], end_m=110.0, bank="strand")
     assert list(res.fate) == [D.FATE_STRANDED, D.FATE_STRANDED]
     # the exit lies on the wet edge (y = 10 m), reached after (10 - y0) / 0.2 s
     assert np.allclose(res.end_y, 10.0, atol=2e-3)
     assert np.allclose(res.travel_s, (10.0 - np.array([0.0, -5.0])) / 0.2, rtol=2e-4)
+    assert list(res.bank_contacts) == [1, 1]
+    # sliding (the default) the particles follow the bank at u = 0.1 m/s to the end (x = 110 m):
+    # (10 - y0) / 0.2 s to reach it, then the rest of the way at 0.1 m/s
+    res = _track_grid(fld, [50.0, 30.0], [0.0, -5.0], end_m=110.0)
+    assert list(res.fate) == [D.FATE_DOWNSTREAM, D.FATE_DOWNSTREAM]
+    x_bank = np.array([50.0, 30.0]) + 0.1 * (10.0 - np.array([0.0, -5.0])) / 0.2
+    expected = (10.0 - np.array([0.0, -5.0])) / 0.2 + (110.0 - x_bank) / 0.1
+    assert np.allclose(res.travel_s, expected, rtol=1e-3)
+    assert (res.bank_contacts > 10).all()
+    for _, py, _ in res.paths:
+        assert np.all(py <= 10.0)
+    # a particle pushed straight into the bank cannot slide: stranded after a few contacts
+    fld = grid_field(60, 20, 2.0, lambda x, y: 0.0 * x, lambda x, y: 0.0 * x + 0.2, wet_fn=wet)
+    res = _track_grid(fld, [50.0], [0.0], end_m=110.0)
+    assert res.fate[0] == D.FATE_STRANDED and res.bank_contacts[0] == D.STUCK_LIMIT
+    assert res.end_y[0] == pytest.approx(10.0, abs=2e-3)
     # flowing upstream (-x) past the release chainage: 'upstream'
     fld = grid_field(60, 20, 2.0, lambda x, y: -0.3 + 0 * x, lambda x, y: 0 * x, wet_fn=wet)
     res = _track_grid(fld, [50.0], [0.0], end_m=110.0)
@@ -209,17 +225,16 @@ def test_fates_stranded_upstream_outside_time_limit_and_dry_release():
     assert res.class_time_s[1].sum() == 0.0
 
 
-def test_leaving_through_the_downstream_model_boundary_counts_as_downstream():
-    # the wet field ends at x = 100 but the reach axis runs to 110: leaving at x = 100 is within the
-    # downstream band of the field end -> 'downstream'
+def test_a_field_ending_before_the_axis_end_is_followed_to_five_elements_inside_its_end():
+    # the wet field ends at x = 100 m but the reach axis runs to 110 m
     fld = grid_field(50, 10, 2.0, lambda x, y: 0.5 + 0 * x, lambda x, y: 0 * x)
-    res = _track_grid(fld, [5.0], [0.0], end_m=110.0, field_end_m=100.0)
-    assert res.fate[0] == D.FATE_DOWNSTREAM
-    assert res.end_x[0] == pytest.approx(100.0, abs=2e-3)
-    assert res.travel_s[0] == pytest.approx(95.0 / 0.5, rel=1e-4)
-    # an exit further than the band upstream of the field end is 'outside'
-    res = _track_grid(fld, [5.0], [0.0], end_m=110.0, field_end_m=110.0, downstream_band_m=5.0)
-    assert res.fate[0] == D.FATE_OUTSIDE
+    run = D.drift_run(fld, straight_reach(110.0), VEL, D.DriftOptions(n_particles=4))
+    assert run.field_end_m == pytest.approx(100.0) and run.requested_end_m == pytest.approx(110.0)
+    assert run.end_m == pytest.approx(100.0 - 5 * 2.0)
+    assert any("wet field ends at chainage 100 m" in n for n in run.notes)
+    assert (run.result.fate == D.FATE_DOWNSTREAM).all()
+    np.testing.assert_allclose(run.result.travel_s, (90.0 - 2.0) / 0.5, rtol=1e-9)
+    assert run.estimate.total_s == pytest.approx((90.0 - 2.0) / 0.5, rel=1e-9)
 
 
 def test_class_and_zone_times_sum_to_the_travel_time():

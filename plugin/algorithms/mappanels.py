@@ -269,7 +269,7 @@ banks, axis and km posts use neutral colours that do not compete with the classe
         layouts.apply_qml(locator_pages, "panel_pages.qml")
 
         habitat_item = layouts.PanelLayer(hab, legend_title)
-        stack = [layouts.PanelLayer(posts, "Chainage post (km along the reach axis)")]
+        stack = [layouts.PanelLayer(posts, "Chainage post (km)")]
         stack += [layouts.PanelLayer(e, name) for e, name in extras]
         if veg_outline is not None:
             stack.append(layouts.PanelLayer(veg_outline))
@@ -316,7 +316,7 @@ def _title(kind, scheme, layer, regime, q, unit) -> str:
         what = {"velocity": "Velocity classes", "froude": "Mesohabitats (Jowett 1993)"}.get(scheme.name,
                                                                                            "Habitat classes")
     else:
-        what = layer.name()
+        what = layouts.pretty_name(layer.name())
     bits = [b for b in (regime, panels.discharge_text(q, unit).split(" (")[0] if q else "") if b]
     return f"{what} — {', '.join(bits)}" if bits else what
 

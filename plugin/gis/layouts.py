@@ -77,7 +77,7 @@ from qgis.core import (
     QgsVectorLayerSimpleLabeling,
     QgsWkbTypes,
 )
-from qgis.PyQt.QtCore import Qt
+from qgis.PyQt.QtCore import QSize, Qt
 from qgis.PyQt.QtGui import QColor, QFont
 from qgis.PyQt.QtXml import QDomDocument
 
@@ -623,6 +623,9 @@ def build_layout(project, template_path: str, spec: PanelSpec, feedback=None) ->
                 model.refreshLayerLegend(node)
         leg.setLinkedMap(main)
         leg.updateLegend()
+        if not fit_legend(leg)[2] and feedback is not None:
+            feedback.pushWarning("The legend has more entries than its box holds even with small text: some are "
+                                 "cut off. Use A3, fewer classes or extra layers, or a template with a larger legend.")
 
     sb = layout.itemById("scalebar")
     if isinstance(sb, QgsLayoutItemScaleBar):
@@ -645,6 +648,52 @@ def build_layout(project, template_path: str, spec: PanelSpec, feedback=None) ->
     stem = spec.file_stem.replace("'", "")
     atlas.setFilenameExpression(f"'{stem}_page' || lpad(to_string(\"page\"), 2, '0')")
     return layout
+
+
+_LEGEND_STYLES = (QgsLegendStyle.Title, QgsLegendStyle.Group, QgsLegendStyle.Subgroup, QgsLegendStyle.SymbolLabel)
+
+
+def fit_legend(leg) -> tuple:
+    """Keep the legend inside its box: when its entries need more room than the template gives,
+    use smaller text (down to 65 %), then two columns. Returns (columns, text scale, fits); when no
+    option fits, the one that overflows least is kept (and ``fits`` is False: the caller warns)."""
+    box = QgsLayoutSize(leg.rect().width(), leg.rect().height(), QgsUnitTypes.LayoutMillimeters)
+    fonts = {st: QFont(leg.styleFont(st)) for st in _LEGEND_STYLES}
+    sym = (leg.symbolWidth(), leg.symbolHeight())
+
+    def apply(cols, scale):
+        for st, f in fonts.items():
+            g = QFont(f)
+            g.setPointSizeF(f.pointSizeF() * scale)
+            leg.setStyleFont(st, g)
+        leg.setSymbolWidth(sym[0] * scale)
+        leg.setSymbolHeight(sym[1] * scale)
+        leg.setColumnCount(cols)
+        leg.setSplitLayer(cols > 1)
+        leg.setEqualColumnWidth(False)
+        leg.adjustBoxSize()
+        w, h = leg.rect().width(), leg.rect().height()
+        return max(w - box.width(), 0.0) * h + max(h - box.height(), 0.0) * w  # overflow area, mm2
+
+    leg.setResizeToContents(True)
+    # QGIS sizes a legend only after it has been painted once (it needs the render DPI): paint its
+    # region at a low resolution first
+    QgsLayoutExporter(leg.layout()).renderRegionToImage(leg.sceneBoundingRect(), QSize(), 30)
+    best = None
+    chosen = None
+    for cols, scale in ((1, 1.0), (1, 0.9), (1, 0.8), (1, 0.72), (1, 0.65), (2, 0.72), (2, 0.65)):
+        over = apply(cols, scale)
+        if over <= 0.01:
+            chosen = (cols, scale, True)
+            break
+        if best is None or over < best[0]:
+            best = (over, cols, scale)
+    if chosen is None:
+        apply(best[1], best[2])
+        chosen = (best[1], best[2], False)
+    leg.setResizeToContents(False)
+    leg.attemptResize(box)
+    return chosen
 
 
 def fit_extent(rect: QgsRectangle, aspect: float, margin: float = 0.05) -> QgsRectangle:
@@ -775,7 +824,8 @@ def template_frame_mm(path: str) -> tuple:
     """(width, height) in mm of the template's main map (the page frame the pages are fitted to)."""
     from qgis.core import QgsProject
 
-    layout = load_template(QgsProject(), path)
+    project = QgsProject()  # kept alive while the layout is used
+    layout = load_template(project, path)
     item = layout.itemById("main_map")
     size = layout.renderContext().measurementConverter().convert(item.sizeWithUnits(),
                                                                  QgsUnitTypes.LayoutMillimeters)
@@ -797,6 +847,12 @@ def habitat_kind(layer) -> str:
     if isinstance(layer, QgsVectorLayer) and layer.fields().indexOf("class") >= 0:
         return "class_vector"
     return "other"
+
+
+def pretty_name(name: str) -> str:
+    """'speed_change' -> 'Speed change' (layer names made from file names read as words)."""
+    text = name.replace("_", " ").strip()
+    return text[:1].upper() + text[1:] if text else name
 
 
 def scheme_title(scheme) -> str:
@@ -826,16 +882,16 @@ def style_habitat(layer, scheme, feedback=None, from_project: bool = False) -> t
         renderer = layer.renderer()
         if renderer is not None and renderer.type() not in ("singlebandgray", "multibandcolor"):
             # a style came with the raster (e.g. compareregimes' .qml beside it): keep its colours
-            return kind, layer.name()
+            return kind, pretty_name(layer.name())
         limit = style_change_raster(layer)
         if feedback is not None:
             feedback.pushInfo(f"{layer.name()}: a raster without a class colour table, drawn as a change "
                               f"(diverging colours, ±{limit:g})")
-        return kind, f"{layer.name()} (m/s)"
+        return kind, f"{pretty_name(layer.name())} (m/s)"
     if kind == "class_vector":
         style_class_vector(layer, scheme)
         return kind, scheme_title(scheme)
-    return kind, layer.name()
+    return kind, pretty_name(layer.name())
 
 
 EDGE_FIELDS = ("stand_id", "class", "length_m")  # vegetationoverlay EDGES

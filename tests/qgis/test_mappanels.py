@@ -275,8 +275,9 @@ def test_own_template_and_bad_inputs(run_alg, data, tmp_path):
 def test_shipped_templates_and_styles(qgis_app):
     from plugin.gis import layouts
 
+    project = QgsProject()
     for paper in ("A4", "A3"):
-        lay = layouts.load_template(QgsProject(), layouts.default_template(paper))
+        lay = layouts.load_template(project, layouts.default_template(paper))
         for item_id in layouts.IDS:
             assert lay.itemById(item_id) is not None, (paper, item_id)
         w, h = layouts.PAPERS_MM[paper]
@@ -298,3 +299,48 @@ def test_cancel_leaves_no_output(run_alg, data, tmp_path):
     assert not (tmp_path / "pages.gpkg").exists()
     assert not list(tmp_path.rglob("*.png"))
     assert not list(tmp_path.rglob(".partial-*"))
+
+
+def _legend_with(project, n, label):
+    from qgis.core import QgsCategorizedSymbolRenderer, QgsLayerTree, QgsRendererCategory, QgsSymbol, QgsWkbTypes
+
+    from plugin.gis import layouts
+
+    lay = layouts.load_template(project, layouts.default_template("A4"))
+    leg = lay.itemById("legend")
+    vl = QgsVectorLayer("Polygon?crs=EPSG:28355&field=class:string", "many classes", "memory")
+    cats = []
+    for i in range(n):
+        sym = QgsSymbol.defaultSymbol(QgsWkbTypes.PolygonGeometry)
+        sym.setColor(QColor.fromHsv(i * 15, 150, 200))
+        cats.append(QgsRendererCategory(f"c{i}", sym, label.format(i)))
+    vl.setRenderer(QgsCategorizedSymbolRenderer("class", cats))
+    root = QgsLayerTree()
+    root.addLayer(vl)
+    leg.setAutoUpdateModel(False)
+    leg.model().setRootGroup(root)
+    leg.updateLegend()
+    return lay, leg, (vl, root, project)
+
+
+def test_long_legend_is_fitted_into_its_box(qgis_app):
+    # 20 categories do not fit the side panel at full size: the legend shrinks its text until its
+    # contents fit the template's box (QGIS's own measure of what the contents need)
+    from qgis.PyQt.QtCore import QSize
+
+    from plugin.gis import layouts
+
+    project = QgsProject()  # a layout needs its project alive
+    lay, leg, keep = _legend_with(project, 20, "class {} (a label)")
+    box = (leg.rect().width(), leg.rect().height())
+    cols, scale, fits = layouts.fit_legend(leg)
+    assert fits and scale < 1.0
+    assert (leg.rect().width(), leg.rect().height()) == pytest.approx(box)
+    leg.setResizeToContents(True)
+    layouts.QgsLayoutExporter(lay).renderRegionToImage(leg.sceneBoundingRect(), QSize(), 30)
+    leg.adjustBoxSize()
+    assert leg.rect().height() <= box[1] + 0.01 and leg.rect().width() <= box[0] + 0.01
+    # far too many long labels: reported as not fitting (the algorithm then warns)
+    project2 = QgsProject()
+    _, leg2, keep2 = _legend_with(project2, 40, "class number {} with a rather long label")
+    assert layouts.fit_legend(leg2)[2] is False

@@ -4,6 +4,7 @@ reach (natural against weir at 3000 ML/d)."""
 
 from __future__ import annotations
 
+import html
 import re
 from pathlib import Path
 
@@ -392,6 +393,44 @@ def test_an_alternative_in_another_crs_is_reprojected_and_said(run_alg, channel)
     assert np.abs(m - m_ref).sum() <= 0.05 * wet
 
 
+def test_a_cell_size_forces_the_common_grid_and_identical_runs_still_do_not_change(run_alg, channel):
+    tmp, base, cl = channel
+    res = run_alg("compareregimes", run_params(base, base, cl, tmp / "out", RESAMPLE_CELL_SIZE=4.0))
+    assert res["METHOD"] == "common grid"
+    a, nd, gt, meta, _ = raster(res["SPEED_CHANGE"])
+    assert gt[1] == 4.0 and "4 m cells (the cell size given)" in meta["comparison_method"]
+    assert np.all((a == 0) | (a == nd)) and (a == 0).sum() > 0
+    m, _ = matrix_rows(res["TRANSITION_TABLE"])
+    assert np.count_nonzero(m - np.diag(np.diag(m))) == 0
+    # 4 m cells sample the 2 m rasters at their centres: every 4 m cell centre lies on a 2 m cell corner, so
+    # the area on the grid is that of the wet 2 m cells picked, within one 4 m cell along each wet edge
+    d, _, _ = read_cells(base)
+    assert abs(m.sum() - np.isfinite(d).sum() * 4.0) <= 2 * (hc.LENGTH + hc.WIDTH) * 4.0
+    assert res["CHANGED_AREA_M2"] == 0
+
+
+def test_a_run_covering_part_of_the_reach_is_said(run_alg, channel):
+    tmp, base, cl = channel
+    (tmp / "part").mkdir()
+    d_part = str(tmp / "part" / "depth.tif")
+    s_part = str(tmp / "part" / "speed.tif")
+    window = [hc.X0 - 10.0, hc.Y0 + hc.WIDTH + 10.0, hc.X0 + 600.0, hc.Y0 - 10.0]  # the upstream half only
+    gdal.Translate(d_part, base["depth"], projWin=window)
+    gdal.Translate(s_part, base["speed"], projWin=window)
+    fb = QgsProcessingFeedback()
+    warnings = []
+    fb.pushWarning = warnings.append
+    res = run_alg("compareregimes", run_params(base, {"depth": d_part, "speed": s_part}, cl, tmp / "out"),
+                  feedback=fb)
+    d, _, gt = read_cells(base)
+    x, _ = channel_x(gt, d.shape)
+    outside = np.isfinite(d) & (x > hc.X0 + 600.0)
+    assert res["WET_BASE_ONLY_M2"] == pytest.approx(outside.sum() * 4.0)
+    text = f"{outside.sum() * 4.0:,.0f} m2 of the base run's wet area lies outside the alternative run's raster extent"
+    assert any(text in w for w in warnings)
+    assert text in html.unescape(Path(res["REPORT"]).read_text(encoding="utf-8"))
+
+
 # ------------------------------------------------------------------------------------------------
 # bad input
 # ------------------------------------------------------------------------------------------------
@@ -485,6 +524,12 @@ def test_demo_weir_against_natural_at_3000(run_alg, sample_dir, tmp_path):
     assert m.sum() == pytest.approx(union)  # the whole demo channel lies along the axis
     wd, _, _, _, _ = raster(res["WET_DRY_CHANGE"])
     assert (wd == 3).sum() * cell == pytest.approx(res["WET_ALT_ONLY_M2"])
+    wn, ww = np.isfinite(dn), np.isfinite(dw)
+    spd, nd, _, _, _ = raster(res["SPEED_CHANGE"])
+    dep, _, _, _, _ = raster(res["DEPTH_CHANGE"])
+    np.testing.assert_allclose(spd[wn & ww], (sw - sn)[wn & ww], atol=1e-6)
+    np.testing.assert_allclose(dep[ww & ~wn], dw[ww & ~wn], rtol=1e-6)
+    assert np.all(spd[~(wn | ww)] == nd)
     _, zones = table(res["ZONE_CHANGE"])
     z = {r["zone"]: r for r in zones}
     # plausibility on invented data (not a reference): the weir pool slows the lower zone and widens it

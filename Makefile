@@ -71,9 +71,11 @@ package: setup
 
 # Shows that qgis_process finds the provider (Debian's qgis_process wrapper passes a flag the
 # 3.22 binary rejects, so the binary is called directly).
+# qgis_process runs the system Python: the venv's site-packages give it shapely 2.0.
 provider-list: setup
-	@$(QGIS_BIN) plugins enable $(PLUGIN_NAME) >/dev/null 2>&1 || true
-	@$(QGIS_BIN) list 2>/dev/null | sed -n '/Channel Habitat/,/^$$/p'
+	@export PYTHONPATH="$$($(PY) -c 'import sysconfig; print(sysconfig.get_paths()["purelib"])')"; \
+	  $(QGIS_BIN) plugins enable $(PLUGIN_NAME) >/dev/null 2>&1 || true; \
+	  $(QGIS_BIN) list 2>/dev/null | sed -n '/^Channel Habitat/,/^$$/p'
 
 bench: sample
 	$(PY) bench/run_all.py

@@ -543,14 +543,16 @@ def flow_from_field(fld: HydraulicField, chainage) -> GridFlow | MeshFlow:
 # Seeds
 # ----------------------------------------------------------------------------------------------
 
-def cross_section_seeds(flow, axis, chainage: float, n: int, max_offset_m: float, spacing_m: float | None = None):
+def cross_section_seeds(flow, axis, chainage: float, n: int, max_offset_m: float, spacing_m: float | None = None,
+                        along_sign: float = 1.0):
     """``n`` points spread evenly over the wet width of the cross-section at ``chainage``.
 
     The section is the line through the axis point at ``chainage``, normal to the axis, sampled
     every ``spacing_m`` (default a quarter element) out to ``max_offset_m`` each side. Wet samples
     whose chainage is far from ``chainage`` (another loop of a meander) are left out. Points sit at
     the centres of n equal shares of the wet length, so islands and side channels get their share.
-    Returns (x, y, offset) with offset > 0 left of the flow looking downstream.
+    The flow's chainage channel is ``along_sign`` x the axis chainage. Returns (x, y, offset) with
+    offset > 0 left of the axis direction (of the flow when chainage grows downstream).
     """
     if n < 1:
         raise ChannelHabitatError("the number of particles must be at least 1", "N_PARTICLES")
@@ -567,7 +569,7 @@ def cross_section_seeds(flow, axis, chainage: float, n: int, max_offset_m: float
     xs, ys = px[0] + s * nx, py[0] + s * ny
     smp = flow.sample(xs, ys)
     tol = max(3.0 * h, 0.1 * half)
-    good = smp.wet & (np.abs(smp.chainage - chainage) <= tol)
+    good = smp.wet & (np.abs(smp.chainage - along_sign * chainage) <= tol)
     if not good.any():
         raise ChannelHabitatError(
             f"no wet water across the reach at the release chainage {chainage:.0f} m; give a release "
@@ -616,6 +618,7 @@ class DriftResult:
     flow_kind: str
     iterations: int = 0
     notes: list = field(default_factory=list)
+    sign: int = 1  # the axis's flow sign: chainage = sign x downstream distance
 
     @property
     def n(self) -> int:
@@ -1110,7 +1113,9 @@ def summary_rows(res: DriftResult) -> list:
     for scope, unit, z in scopes:
         row = {"scope": scope, "unit": unit}
         if z is None:
-            row["chainage_from_m"] = float(np.nanmin(res.release_chainage[tracked])) if tracked.any() else np.nan
+            sg = res.sign
+            row["chainage_from_m"] = (sg * float(np.nanmin(sg * res.release_chainage[tracked])) if tracked.any()
+                                      else np.nan)  # the upstream-most release
             row["chainage_to_m"] = res.end_m
             per_class = ts.sum(axis=1)
         else:
@@ -1153,6 +1158,7 @@ class Estimate:
     end_m: float
     band_fraction: float
     notes: list = field(default_factory=list)
+    sign: int = 1  # chainage = sign x the downstream distance of release_m, end_m, chainage_m
 
     @property
     def total_s(self) -> float:
@@ -1270,9 +1276,13 @@ def estimate_summary_rows(est: Estimate) -> list:
         scopes += [("zone", zn, z) for z, zn in enumerate(est.zone_names)]
     for scope, unit, z in scopes:
         per_class = est.time_s.sum(axis=0) if z is None else est.time_s[z]
-        row = {"scope": scope, "unit": unit,
-               "chainage_from_m": est.release_m if z is None else float(max(est.zone_edges[z], est.release_m)),
-               "chainage_to_m": est.end_m if z is None else float(min(est.zone_edges[z + 1], est.end_m)),
+        sg = est.sign
+        if z is None:
+            c_from, c_to = sg * est.release_m, sg * est.end_m
+        else:
+            c_from = sg * max(sg * float(est.zone_edges[z]), est.release_m)
+            c_to = sg * min(sg * float(est.zone_edges[z + 1]), est.end_m)
+        row = {"scope": scope, "unit": unit, "chainage_from_m": c_from, "chainage_to_m": c_to,
                "n_particles": 0, "n_tracked": 0}
         for name in FATES[:-1]:
             row[f"n_{name}"] = 0
@@ -1343,42 +1353,48 @@ METHOD_ESTIMATE = "1D estimate"
 END_BAND_ELEMENTS = 5.0
 
 
-def reach_window(reach, chainage, element_size: float, release_m=None, end_m=None):
-    """(release, end, requested end, field end, notes): the chainages a run's drift runs between.
+def reach_window(start_m: float, end_m_axis: float, chainage, element_size: float, release_m=None, end_m=None):
+    """(release, end, requested end, field end, notes) in *downstream distance* (the chainage times
+    the axis's flow sign, so it grows downstream): the stretch a run's drift runs along.
 
-    Release: ``release_m``, or one element inside the upstream end of the wet field (at most the
-    axis start). End: ``end_m`` (default the axis end); when the wet field ends further upstream,
-    :data:`END_BAND_ELEMENTS` elements upstream of the field's end instead (with a note)."""
-    axis = reach.axis
+    ``start_m``/``end_m_axis``: the axis's upstream and downstream ends, ``chainage``: the run's
+    element positions, ``release_m``/``end_m``: requested values (None: defaults), all in downstream
+    distance. Release: one element inside the upstream end of the wet field (not before the axis
+    start). End: the axis's downstream end; when the wet field ends further upstream,
+    :data:`END_BAND_ELEMENTS` elements inside the field's end instead (with a note)."""
     c = np.asarray(chainage, dtype=np.float64)
     c = c[np.isfinite(c)]
     if c.size == 0:
         raise ChannelHabitatError("no wet element of the run lies along the reach axis", "CENTRELINE")
-    # the wet field's extent along the axis (element centres +- half an element, within the axis)
-    field_start = max(float(c.min()) - element_size / 2.0, axis.start_m)
-    field_end = min(float(c.max()) + element_size / 2.0, axis.end_m)
+    lo_, hi_ = min(start_m, end_m_axis), max(start_m, end_m_axis)
+    field_start = max(float(c.min()) - element_size / 2.0, start_m)
+    field_end = min(float(c.max()) + element_size / 2.0, end_m_axis)
     if release_m is None:
         release_m = field_start + element_size
-    requested = axis.end_m if end_m is None else float(end_m)
-    if not axis.start_m <= release_m < axis.end_m:
-        raise ChannelHabitatError(f"the release chainage {release_m:.0f} m is outside the reach axis "
-                                  f"({axis.start_m:.0f}-{axis.end_m:.0f} m)", "RELEASE_CHAINAGE")
-    if not axis.start_m < requested <= axis.end_m:
-        raise ChannelHabitatError(f"the end chainage {requested:.0f} m is outside the reach axis "
-                                  f"({axis.start_m:.0f}-{axis.end_m:.0f} m)", "END_CHAINAGE")
+    requested = end_m_axis if end_m is None else float(end_m)
+
+    def show(v):  # back to chainage for messages
+        return abs(v) if start_m < 0 or end_m_axis < 0 else v
+
+    if not lo_ <= release_m < hi_:
+        raise ChannelHabitatError(f"the release chainage {show(release_m):.0f} m is outside the reach axis "
+                                  f"({show(start_m):.0f}-{show(end_m_axis):.0f} m)", "RELEASE_CHAINAGE")
+    if not lo_ < requested <= hi_:
+        raise ChannelHabitatError(f"the end chainage {show(requested):.0f} m is outside the reach axis "
+                                  f"({show(start_m):.0f}-{show(end_m_axis):.0f} m)", "END_CHAINAGE")
     if not requested > release_m:
-        raise ChannelHabitatError(f"the end chainage ({requested:.0f} m) must lie downstream of the release "
-                                  f"chainage ({release_m:.0f} m)", "END_CHAINAGE")
+        raise ChannelHabitatError(f"the end chainage ({show(requested):.0f} m) must lie downstream of the "
+                                  f"release chainage ({show(release_m):.0f} m)", "END_CHAINAGE")
     notes = []
     end = requested
     if field_end < requested - element_size / 2.0:
         end = field_end - END_BAND_ELEMENTS * element_size
-        notes.append(f"the wet field ends at chainage {field_end:.0f} m, upstream of the end chainage "
-                     f"{requested:.0f} m: drift is followed to {end:.0f} m ({END_BAND_ELEMENTS:g} elements inside "
-                     "the field's end).")
+        notes.append(f"the wet field ends at chainage {show(field_end):.0f} m, upstream of the end chainage "
+                     f"{show(requested):.0f} m: drift is followed to {show(end):.0f} m ({END_BAND_ELEMENTS:g} "
+                     "elements inside the field's end).")
         if end <= release_m:
-            raise ChannelHabitatError(f"the wet field ends at chainage {field_end:.0f} m, too close to the "
-                                      f"release chainage {release_m:.0f} m", "RELEASE_CHAINAGE")
+            raise ChannelHabitatError(f"the wet field ends at chainage {show(field_end):.0f} m, too close to the "
+                                      f"release chainage {show(release_m):.0f} m", "RELEASE_CHAINAGE")
     return float(release_m), float(end), float(requested), float(field_end), notes
 
 
@@ -1388,7 +1404,8 @@ def drift_run(fld: HydraulicField, reach, scheme, options: DriftOptions | None =
 
     ``location``: the run's element Location (chainage, offset) - computed when not given.
     ``seeds``: (x, y) arrays of release points; default ``n_particles`` across the wet width at the
-    release chainage.
+    release chainage. Works for axes whose chainage grows downstream or upstream (the axis's
+    ``flow_sign``): internally in downstream distance, outputs in chainage.
     """
     from .reach import locate_field
 
@@ -1396,48 +1413,193 @@ def drift_run(fld: HydraulicField, reach, scheme, options: DriftOptions | None =
     progress = as_progress(progress)
     if location is None:
         location = locate_field(reach, fld)
-    chain = np.asarray(location.chainage, dtype=np.float64)
+    axis = reach.axis
+    sign = float(getattr(axis, "flow_sign", 1))
+    along = sign * np.asarray(location.chainage, dtype=np.float64)  # downstream distance
     offset = np.asarray(location.offset, dtype=np.float64)
     if isinstance(fld.support, GridSupport):
         h = min(abs(fld.support.transform[1]), abs(fld.support.transform[5]))
     else:
         h = float(np.sqrt(np.median(fld.area))) if fld.n else 1.0
-    release_m, end_m, requested_end, field_end, notes = reach_window(reach, chain, h, options.release_m,
-                                                                     options.end_m)
-    est = travel_time_estimate(chain, offset, fld.speed, fld.depth, fld.area, reach.segment_edges, scheme,
-                               release_m=release_m, end_m=end_m, zone_edges=reach.zone_edges,
-                               zone_names=reach.zone_names, band_fraction=options.band_fraction)
+    a_start, a_end = sorted((sign * axis.start_m, sign * axis.end_m))
+    seg_a = np.sort(sign * np.asarray(reach.segment_edges, dtype=np.float64))
+    zone_a = np.sort(sign * np.asarray(reach.zone_edges, dtype=np.float64))
+    zone_names = list(reach.zone_names) if sign > 0 else list(reach.zone_names)[::-1]
+    rel_req = None if options.release_m is None else sign * options.release_m
+    end_req = None if options.end_m is None else sign * options.end_m
+    release_a, end_a, requested_a, field_end_a, notes = reach_window(a_start, a_end, along, h, rel_req, end_req)
+    est = travel_time_estimate(along, offset, fld.speed, fld.depth, fld.area, seg_a, scheme,
+                               release_m=release_a, end_m=end_a, zone_edges=zone_a, zone_names=zone_names,
+                               band_fraction=options.band_fraction)
+    _estimate_to_chainage(est, sign, len(seg_a) - 1)
     notes += est.notes
+    ends = (sign * release_a, sign * end_a, sign * requested_a, sign * field_end_a)
     if fld.u is None or fld.v is None:
         notes.append("the run has speed only (no velocity vectors): travel times are the 1D estimate.")
-        return DriftRun(None, est, None, release_m, end_m, requested_end, field_end, METHOD_ESTIMATE, notes)
+        return DriftRun(None, est, None, *ends, METHOD_ESTIMATE, notes)
+    check_flow_direction(fld, axis, location.chainage, sign)
     progress(0.02, "building the velocity field")
-    flow = flow_from_field(fld, chain)
-    axis = reach.axis
+    flow = flow_from_field(fld, along)
 
     def exact(x, y):
-        return extended_chainage(axis, x, y)
+        return sign * extended_chainage(axis, x, y)
 
     if seeds is None:
-        near = np.abs(chain - release_m) <= 2.0 * flow.typical_size_m
+        near = np.abs(along - release_a) <= 2.0 * flow.typical_size_m
         if not near.any():
-            raise ChannelHabitatError(f"no wet element near the release chainage {release_m:.0f} m",
+            raise ChannelHabitatError(f"no wet element near the release chainage {sign * release_a:.0f} m",
                                       "RELEASE_CHAINAGE")
         max_off = float(np.max(np.abs(offset[near]))) + 2.0 * flow.typical_size_m
-        sx, sy, soff = cross_section_seeds(flow, axis, release_m, options.n_particles, max_off)
+        sx, sy, soff = cross_section_seeds(flow, axis, sign * release_a, options.n_particles, max_off,
+                                           along_sign=sign)
+        soff = sign * soff  # left of the chainage direction -> left of the flow
+        order = np.argsort(soff, kind="stable")  # particles numbered from the right bank to the left
+        sx, sy, soff = sx[order], sy[order], soff[order]
     else:
         sx = np.asarray(seeds[0], dtype=np.float64)
         sy = np.asarray(seeds[1], dtype=np.float64)
         if sx.size == 0:
             raise ChannelHabitatError("the seed layer has no points", "SEEDS")
         soff = axis.locate(sx, sy).offset
-    res = track(flow, sx, sy, scheme, end_m=end_m, exact_chainage=exact, zone_edges=reach.zone_edges,
-                zone_names=reach.zone_names, t_max_s=options.t_max_s, step=options.step,
+    res = track(flow, sx, sy, scheme, end_m=end_a, exact_chainage=exact, zone_edges=zone_a,
+                zone_names=zone_names, t_max_s=options.t_max_s, step=options.step,
                 path_spacing_m=options.path_spacing_m, bank=options.bank, progress=progress.sub(0.05, 1.0))
+    # back to chainage for the outputs
+    res.release_chainage = sign * res.release_chainage
+    res.end_chainage = sign * res.end_chainage
+    res.zone_edges = sign * zone_a
+    res.end_m = sign * end_a
+    res.sign = int(sign)
     counts = res.fate_counts()
     if counts["dry_release"]:
         notes.append(f"{counts['dry_release']} seed point(s) lie on dry or no-data elements and were not tracked.")
     if counts["time_limit"]:
         notes.append(f"{counts['time_limit']} particle(s) were still drifting at the time limit "
                      f"({options.t_max_s / SECONDS_PER_DAY:g} days): their times are lower bounds.")
-    return DriftRun(res, est, soff, release_m, end_m, requested_end, field_end, METHOD_TRACKING, notes)
+    return DriftRun(res, est, soff, *ends, METHOD_TRACKING, notes)
+
+
+def check_flow_direction(fld: HydraulicField, axis, chainage, sign: float) -> None:
+    """Refuse a reach axis whose downstream direction runs against the water: the area-weighted
+    mean velocity component along the axis's downstream tangent must be positive."""
+    _, _, ang = axis.point_at(np.asarray(chainage, dtype=np.float64))
+    along = (fld.u * np.cos(ang) + fld.v * np.sin(ang)) * sign
+    w = np.asarray(fld.area, dtype=np.float64)
+    mean = float(np.sum(w * along) / np.sum(w)) if w.sum() > 0 else 0.0
+    if mean < 0:
+        raise ChannelHabitatError(
+            f"the water flows against the reach axis (mean velocity {mean:.3f} m/s along its downstream "
+            "direction): the centreline seems to run from downstream to upstream. Build the axis with "
+            "buildreach (which orients it), or reverse the line, so chainage runs with the flow.", "CENTRELINE")
+
+
+def _estimate_to_chainage(est: Estimate, sign: float, n_segments: int) -> None:
+    """Segment rows of an estimate made in downstream distance, in chainage and the reach's own
+    segment numbers (the internal pieces stay in downstream distance, with ``sign``)."""
+    est.sign = int(sign)
+    if sign > 0:
+        return
+    cols = est.segments
+    cols["segment"] = (n_segments + 1 - cols["segment"]).astype(np.int64)
+    cols["chainage_from_m"] = -cols["chainage_from_m"]
+    cols["chainage_to_m"] = -cols["chainage_to_m"]
+    est.zone_edges = -est.zone_edges
+
+
+# ----------------------------------------------------------------------------------------------
+# Tables over several runs (regime x discharge)
+# ----------------------------------------------------------------------------------------------
+
+RUN_KEYS = ("run", "regime", "q_mld", "q_m3s")
+
+
+def _stack(rows: list, keys_first=()) -> dict:
+    """Rows (dicts) -> ordered columns; a key missing from a row gives NaN (numbers) or ''."""
+    order = list(keys_first)
+    for r in rows:
+        for k in r:
+            if k not in order:
+                order.append(k)
+    cols = {}
+    for k in order:
+        vals = [r.get(k, None) for r in rows]
+        sample = next((v for v in vals if v is not None), None)
+        if isinstance(sample, str):
+            cols[k] = ["" if v is None else v for v in vals]
+        elif isinstance(sample, (bool, np.bool_)):
+            cols[k] = np.array([bool(v) for v in vals])
+        elif isinstance(sample, (int, np.integer)) and all(v is not None for v in vals):
+            cols[k] = np.array(vals, dtype=np.int64)
+        else:
+            cols[k] = np.array([np.nan if v is None else v for v in vals], dtype=np.float64)
+    return cols
+
+
+def _columns_to_rows(cols: dict) -> list:
+    n = len(next(iter(cols.values()))) if cols else 0
+    return [{k: (v[i].item() if isinstance(v, np.ndarray) else v[i]) for k, v in cols.items()} for i in range(n)]
+
+
+def run_tables(runs: list, axis=None) -> dict:
+    """Output tables of several runs. ``runs``: [(meta, DriftRun)] with meta keys :data:`RUN_KEYS`.
+
+    Returns {'paths': (columns, [(x, y, m)]), 'residence': columns, 'summary': columns,
+    'estimate': columns}. PATHS holds one line per tracked particle (M = seconds since release);
+    a speed-only run gives one line along the axis from release to end, M = the 1D estimate of the
+    time since release. SUMMARY rows: per run, the reach then every zone.
+    """
+    path_rows, path_geoms, res_rows, sum_rows, est_rows = [], [], [], [], []
+    for meta, run in runs:
+        base = {k: meta.get(k) for k in RUN_KEYS}
+        est = run.estimate
+        est_zone = est.time_s.sum(axis=1)
+        common = {**base, "method": run.method, "release_chainage_m": run.release_m,
+                  "end_chainage_m": run.end_m}
+        if run.result is not None:
+            res = run.result
+            pcols = particle_columns(res, run.seed_offset)
+            for row in _columns_to_rows(pcols):
+                res_rows.append({**base, **row})
+            tracked = res.fate != FATE_DRY_RELEASE
+            for i in range(res.n):
+                if not tracked[i]:
+                    continue
+                px, py, pt = res.paths[i]
+                path_rows.append({**base, "particle": i + 1, "fate": FATES[int(res.fate[i])],
+                                  "method": run.method,
+                                  "t_total_h": float(res.travel_s[i] / SECONDS_PER_HOUR),
+                                  "t_total_d": float(res.travel_s[i] / SECONDS_PER_DAY),
+                                  "release_offset_m": float(run.seed_offset[i]) if run.seed_offset is not None
+                                  else np.nan,
+                                  "end_chainage_m": float(res.end_chainage[i]),
+                                  "path_length_m": float(res.path_length_m[i]),
+                                  "bank_contacts": int(res.bank_contacts[i])})
+                path_geoms.append((px, py, pt))
+            srows = summary_rows(res)
+            step = res.step.describe()
+        else:
+            srows = estimate_summary_rows(est)
+            step = "segment length / centreline-band mean speed"
+            if axis is not None and np.isfinite(est.total_s):
+                sg = est.sign
+                va = sg * axis.chainage
+                ch = np.unique(np.concatenate([est.chainage_m, va[(va > est.release_m) & (va < est.end_m)]]))
+                ax_, ay_, _ = axis.point_at(sg * ch)
+                path_rows.append({**base, "particle": 0, "fate": "estimate", "method": run.method,
+                                  "t_total_h": est.total_s / SECONDS_PER_HOUR,
+                                  "t_total_d": est.total_s / SECONDS_PER_DAY, "release_offset_m": 0.0,
+                                  "end_chainage_m": sg * est.end_m, "path_length_m": est.end_m - est.release_m,
+                                  "bank_contacts": 0})
+                path_geoms.append((ax_, ay_, est.time_at(ch)))
+        for srow in srows:
+            z = None if srow["scope"] == "reach" else est.zone_names.index(srow["unit"])
+            t_est = est.total_s if z is None else float(est_zone[z])
+            sum_rows.append({**common, **srow, "step_rule": step, "t_estimate_h": t_est / SECONDS_PER_HOUR})
+        for row in _columns_to_rows(est.segments):
+            est_rows.append({**base, **row})
+    return {
+        "paths": (_stack(path_rows, RUN_KEYS), path_geoms),
+        "residence": _stack(res_rows, RUN_KEYS),
+        "summary": _stack(sum_rows, RUN_KEYS),
+        "estimate": _stack(est_rows, RUN_KEYS),
+    }

@@ -432,3 +432,42 @@ def test_estimate_with_a_dry_segment_is_infinite_and_noted():
                                  np.arange(0, 401.0, 100.0), VEL, release_m=0.0, end_m=400.0)
     assert est.total_s == np.inf
     assert any("segment(s) 2" in n for n in est.notes)
+
+
+def test_axis_against_the_flow_is_refused():
+    fld = grid_field(100, 10, 2.0, lambda x, y: 0.3 + 0 * x, lambda x, y: 0 * x)
+    axis = ReachAxis(np.array([200.0, 0.0]), np.array([0.0, 0.0]))  # digitised downstream -> upstream
+    reach = Reach(axis, np.arange(0.0, 200.1, 100.0), [0.0, 200.0], ["reach"])
+    with pytest.raises(ChannelHabitatError) as err:
+        D.drift_run(fld, reach, VEL, D.DriftOptions(n_particles=3))
+    assert err.value.parameter == "CENTRELINE" and "against the reach axis" in str(err.value)
+
+
+def test_axis_with_chainage_growing_upstream_gives_the_same_drift():
+    import inspect
+
+    if "origin" not in inspect.signature(ReachAxis).parameters:
+        pytest.skip("ReachAxis has no origin parameter yet")
+    fld = grid_field(200, 12, 2.0, lambda x, y: 0.02 + 0.001 * x, lambda x, y: 0 * x,
+                     wet_fn=lambda x, y: np.abs(y) < 10)
+    down = straight_reach(400.0, zones=([0.0, 150.0, 400.0], ["upper", "lower"]))
+    # the same line digitised from the downstream end, chainage growing upstream (origin downstream)
+    axis = ReachAxis(np.array([400.0, 0.0]), np.array([0.0, 0.0]), origin="downstream")
+    up = Reach(axis, 400.0 - np.arange(0.0, 400.1, 100.0)[::-1], [0.0, 250.0, 400.0], ["lower", "upper"])
+    opts = D.DriftOptions(n_particles=6)
+    a = D.drift_run(fld, down, VEL, opts)
+    b = D.drift_run(fld, up, VEL, opts)
+    np.testing.assert_allclose(b.result.travel_s, a.result.travel_s, rtol=1e-9)
+    np.testing.assert_allclose(b.result.class_time_s, a.result.class_time_s, rtol=1e-9, atol=1e-9)
+    assert b.result.zone_names == ["upper", "lower"]
+    np.testing.assert_allclose(b.result.zone_time_s, a.result.zone_time_s, rtol=1e-9, atol=1e-9)
+    np.testing.assert_allclose(b.result.release_chainage, 400.0 - a.result.release_chainage)
+    np.testing.assert_allclose(b.seed_offset, a.seed_offset, atol=1e-9)
+    assert b.release_m == pytest.approx(400.0 - a.release_m) and b.end_m == pytest.approx(0.0)
+    assert b.estimate.total_s == pytest.approx(a.estimate.total_s, rel=1e-9)
+    assert list(b.estimate.segments["segment"]) == [4, 3, 2, 1]
+    np.testing.assert_allclose(b.estimate.segments["chainage_from_m"], 400.0 - a.estimate.segments["chainage_from_m"])
+    ra, rb = D.summary_rows(a.result), D.summary_rows(b.result)
+    assert [r["unit"] for r in rb] == ["reach", "upper", "lower"]
+    assert rb[1]["chainage_from_m"] == pytest.approx(400.0) and rb[1]["chainage_to_m"] == pytest.approx(250.0)
+    assert rb[0]["t_total_p50_h"] == pytest.approx(ra[0]["t_total_p50_h"])

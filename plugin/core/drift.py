@@ -87,9 +87,10 @@ SECONDS_PER_DAY = 86400.0
 FATES = ("downstream", "upstream", "stranded", "outside", "time_limit", "dry_release")
 FATE_DOWNSTREAM, FATE_UPSTREAM, FATE_STRANDED, FATE_OUTSIDE, FATE_TIME_LIMIT, FATE_DRY_RELEASE = range(6)
 FATE_TEXT = {
-    "downstream": "reached the downstream end (end chainage, or left the model through its downstream boundary)",
+    "downstream": "reached the end chainage (the end of the reach axis, or of the wet field)",
     "upstream": "left the wet area upstream of its release chainage",
-    "stranded": "left the wet area into a dry or no-data element (bank, bar or island)",
+    "stranded": "stopped at a bank: at the first contact (bank rule 'strand'), or where the current pushed "
+                "it straight into the bank so that it could not slide on (bank rule 'slide')",
     "outside": "left the extent of the grid or mesh away from the reach ends",
     "time_limit": "still drifting at the maximum travel time: its times are lower bounds",
     "dry_release": "released on a dry or no-data element: not tracked",
@@ -130,8 +131,8 @@ class StepRule:
     def describe(self) -> str:
         if self.fixed_dt_s is not None:
             return f"RK4, fixed step {self.fixed_dt_s:g} s"
-        return (f"RK4, dt = clip({self.courant:g} h/|V|, {self.dt_min_s:g} s, {self.dt_max_s:g} s); "
-                "h = element size, |V| = speed at the step start")
+        return (f"RK4; step dt = C h / |V| with C = {self.courant:g}, h = element size, |V| = speed at the "
+                f"step start, kept between {self.dt_min_s:g} s and {self.dt_max_s:g} s")
 
     def dt(self, h, speed):
         if self.fixed_dt_s is not None:
@@ -609,6 +610,7 @@ class DriftResult:
     bank_contacts: np.ndarray
     time_s: np.ndarray
     paths: list
+    path_chainage: list  # chainage of every path vertex (sampled from the field; exact at the ends)
     class_names: list
     zone_names: list
     zone_edges: np.ndarray
@@ -678,19 +680,22 @@ class _Recorder:
         self.max_gap = max_gap_s
         self.parts = []
 
-    def add(self, pid, x, y, t):
+    def add(self, pid, x, y, t, c):
         if pid.size:
-            self.parts.append((pid.copy(), x.copy(), y.copy(), t.copy()))
+            self.parts.append((pid.copy(), x.copy(), y.copy(), t.copy(), np.array(c, dtype=np.float64)))
 
-    def paths(self, n: int) -> list:
+    def paths(self, n: int) -> tuple:
+        """([(x, y, t)] per particle, [chainage] per particle)."""
         if not self.parts:
-            return [(np.zeros(0), np.zeros(0), np.zeros(0)) for _ in range(n)]
+            empty = np.zeros(0)
+            return [(empty, empty, empty) for _ in range(n)], [empty for _ in range(n)]
         pid = np.concatenate([p[0] for p in self.parts])
         order = np.argsort(pid, kind="stable")
         pid = pid[order]
-        cols = [np.concatenate([p[k] for p in self.parts])[order] for k in (1, 2, 3)]
+        cols = [np.concatenate([p[k] for p in self.parts])[order] for k in (1, 2, 3, 4)]
         bounds = np.searchsorted(pid, np.arange(n + 1))
-        return [tuple(c[bounds[i]:bounds[i + 1]] for c in cols) for i in range(n)]
+        xyt = [tuple(c[bounds[i]:bounds[i + 1]] for c in cols[:3]) for i in range(n)]
+        return xyt, [cols[3][bounds[i]:bounds[i + 1]] for i in range(n)]
 
 
 def _stage(flow, x, y, where, k1u, k1v, values):
@@ -846,7 +851,7 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
     steps = np.zeros(live.size, dtype=np.int64)
     rel = release_ch[live]
     last_rx, last_ry, last_rt = x.copy(), y.copy(), t.copy()
-    rec.add(pid, x, y, t)
+    rec.add(pid, x, y, t, cur.chainage)
     span = max(end_m - float(np.nanmin(rel)) if rel.size else 1.0, 1e-9)
     it = 0
     uniform_h = getattr(flow, "uniform_size", None)
@@ -1001,7 +1006,12 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
         else:
             want = np.ones(m, bool)
         if want.any():
-            rec.add(pid[want], x[want], y[want], t[want])
+            cw_ = cur.chainage[want]
+            dw = done[want]
+            if dw.any():  # the stopping point: its exact chainage
+                cw_ = np.array(cw_, dtype=np.float64)
+                cw_[dw] = exact_chainage(x[want][dw], y[want][dw])
+            rec.add(pid[want], x[want], y[want], t[want], cw_)
             last_rx[want], last_ry[want], last_rt[want] = x[want], y[want], t[want]
         if done.any():
             di = np.flatnonzero(done)
@@ -1019,6 +1029,7 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
             acc, length, steps, rel = acc[keep], length[keep], steps[keep], rel[keep]
             contacts, stuck = contacts[keep], stuck[keep]
             last_rx, last_ry, last_rt = last_rx[keep], last_ry[keep], last_rt[keep]
+    paths, path_chainage = rec.paths(n)
     fin = fate != FATE_DRY_RELEASE
     if fin.any():
         end_ch[fin] = np.asarray(exact_chainage(end_x[fin], end_y[fin]), dtype=np.float64)
@@ -1026,7 +1037,7 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
     return DriftResult(
         seed_x=seed_x, seed_y=seed_y, release_chainage=release_ch, end_x=end_x, end_y=end_y,
         end_chainage=end_ch, travel_s=travel, fate=fate, path_length_m=plen, n_steps=nsteps, bank_contacts=bank,
-        time_s=time_s, paths=rec.paths(n), class_names=names, zone_names=zone_names,
+        time_s=time_s, paths=paths, path_chainage=path_chainage, class_names=names, zone_names=zone_names,
         zone_edges=zone_edges, end_m=float(end_m), t_max_s=float(t_max_s), step=step,
         flow_kind=flow.kind, iterations=it)
 
@@ -1137,6 +1148,42 @@ def summary_rows(res: DriftResult) -> list:
             row["pct_unclassified"] = 100.0 * float(per_class[:, 0].sum()) / grand if grand > 0 else np.nan
         rows.append(row)
     return rows
+
+
+def arrival_profile(res: DriftResult, n_levels: int = 200):
+    """Time since release at which particles first pass chainages between the release and the end.
+
+    Returns (chainage levels, p10, p50, p90 in seconds, number of particles that passed each
+    level). Percentiles (numpy, linear) over the particles that passed the level; a particle's
+    passage time is interpolated linearly between its path vertices on the running maximum of its
+    downstream distance (so an eddy that carries it back does not count twice)."""
+    sg = res.sign
+    tracked = np.flatnonzero(res.fate != FATE_DRY_RELEASE)
+    if tracked.size == 0:
+        empty = np.zeros(0)
+        return empty, empty, empty, empty, np.zeros(0, dtype=np.int64)
+    start = float(np.nanmin(sg * res.release_chainage[tracked]))
+    end = sg * res.end_m
+    levels = np.linspace(start, end, n_levels)
+    times = np.full((tracked.size, n_levels), np.nan)
+    for k, i in enumerate(tracked):
+        a = sg * np.asarray(res.path_chainage[i], dtype=np.float64)
+        t = res.paths[i][2]
+        ok = np.isfinite(a)
+        if ok.sum() < 2:
+            continue
+        a, t = np.maximum.accumulate(a[ok]), t[ok]
+        reach_ = levels <= a[-1]
+        keep = np.concatenate([[True], np.diff(a) > 0])  # strictly increasing for interpolation
+        times[k, reach_] = np.interp(levels[reach_], a[keep], t[keep])
+    count = np.count_nonzero(np.isfinite(times), axis=0)
+    with np.errstate(all="ignore"):
+        import warnings
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            pct = np.nanpercentile(times, SUMMARY_PERCENTILES, axis=0)
+    return sg * levels, pct[0], pct[1], pct[2], count
 
 
 # ----------------------------------------------------------------------------------------------
@@ -1469,6 +1516,7 @@ def drift_run(fld: HydraulicField, reach, scheme, options: DriftOptions | None =
     res.end_chainage = sign * res.end_chainage
     res.zone_edges = sign * zone_a
     res.end_m = sign * end_a
+    res.path_chainage = [sign * c for c in res.path_chainage]
     res.sign = int(sign)
     counts = res.fate_counts()
     if counts["dry_release"]:

@@ -658,13 +658,14 @@ def axis_features(axis: ReachAxis, within_m: float, detour: float = 3.0, step_m:
                 upd = d_s[first] < best[a_s[first]]
                 best[a_s[first][upd]] = d_s[first][upd]
                 other[a_s[first][upd]] = b_s[first][upd]
+            # one neck per stretch of consecutive samples with a remote part near: its narrowest
             fin = np.isfinite(best)
-            for k in np.flatnonzero(fin):
-                lo, hi = max(k - 1, 0), min(k + 1, n)
-                if best[k] <= best[lo] and best[k] <= best[hi] and (best[k] < best[lo] or best[k] < best[hi]
-                                                                    or k in (0, n)):
-                    if c[k] < c[other[k]]:  # report each neck once, from its upstream side
-                        feats.append(AxisFeature("neck", float(c[k]), float(c[other[k]]), float(best[k])))
+            lab = np.cumsum(np.r_[True, ~fin[:-1] | ~fin[1:]] & fin)
+            for g in np.unique(lab[fin]):
+                k_run = np.flatnonzero((lab == g) & fin)
+                k = k_run[np.argmin(best[k_run])]
+                if c[k] < c[other[k]]:  # each neck once, from its upstream side
+                    feats.append(AxisFeature("neck", float(c[k]), float(c[other[k]]), float(best[k])))
     # bends: radius from the turn of the tangent over +-(within_m) along the line
     w = max(int(round(within_m / step)), 1)
     if n > 2 * w:

@@ -471,3 +471,35 @@ def test_axis_with_chainage_growing_upstream_gives_the_same_drift():
     assert [r["unit"] for r in rb] == ["reach", "upper", "lower"]
     assert rb[1]["chainage_from_m"] == pytest.approx(400.0) and rb[1]["chainage_to_m"] == pytest.approx(250.0)
     assert rb[0]["t_total_p50_h"] == pytest.approx(ra[0]["t_total_p50_h"])
+
+
+def test_particles_slide_along_a_mesh_bank():
+    # wet faces |y| < 10 of a triangle mesh; the current pushes towards +y at 0.2 m/s while flowing
+    # down the reach at 0.1 m/s: the particles meet the bank at y = 10 and follow it
+    nx_, ny_, fn = tri_mesh(60, 20, 2.0, y0=-20.0, quads_every=3)
+    fld = mesh_field(nx_, ny_, fn, lambda x, y: 0.1 + 0 * x, lambda x, y: 0.2 + 0 * x,
+                     wet_fn=lambda x, y: np.abs(y) < 10)
+    flow = D.flow_from_field(fld, fld.x)
+    y0 = np.array([0.0, -5.0])
+    res = D.track(flow, np.array([50.0, 30.0]), y0, VEL, end_m=110.0, exact_chainage=x_chainage)
+    assert list(res.fate) == [D.FATE_DOWNSTREAM, D.FATE_DOWNSTREAM]
+    x_bank = np.array([50.0, 30.0]) + 0.1 * (10.0 - y0) / 0.2
+    expected = (10.0 - y0) / 0.2 + (110.0 - x_bank) / 0.1
+    assert np.allclose(res.travel_s, expected, rtol=2e-3)
+    for _, py, _ in res.paths:
+        assert np.all(py <= 10.0 + 1e-9) and py[-1] > 9.9
+    strand = D.track(flow, np.array([50.0]), np.array([0.0]), VEL, end_m=110.0, exact_chainage=x_chainage,
+                     bank="strand")
+    assert strand.fate[0] == D.FATE_STRANDED and strand.end_y[0] == pytest.approx(10.0, abs=1e-3)
+
+
+def test_arrival_profile_in_uniform_flow():
+    fld = grid_field(200, 12, 2.0, lambda x, y: 0.25 + 0 * x, lambda x, y: 0 * x,
+                     wet_fn=lambda x, y: np.abs(y) < 10)
+    run = D.drift_run(fld, straight_reach(400.0), VEL, D.DriftOptions(n_particles=8, path_spacing_m=7.0))
+    ch, p10, p50, p90, count = D.arrival_profile(run.result, n_levels=50)
+    assert ch[0] == pytest.approx(2.0) and ch[-1] == pytest.approx(400.0)
+    expected = (ch - 2.0) / 0.25  # every particle passes chainage c at (c - release) / U
+    np.testing.assert_allclose(p50, expected, rtol=1e-9, atol=1e-6)
+    np.testing.assert_allclose(p10, expected, rtol=1e-9, atol=1e-6)
+    assert (count == 8).all()

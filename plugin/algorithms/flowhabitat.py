@@ -12,7 +12,6 @@ from qgis.core import (
 )
 
 from ..core import curves as cv
-from ..core import habitat
 from ..core.field import DEFAULT_WET_DEPTH_M
 from ..gis import outputs, reachinput, scenarioinput, scenariorun, schemeinput
 from ..gis.flowreport import build_report, runs_table
@@ -108,12 +107,11 @@ nothing is extrapolated beyond the runs.</p>
 
         # --- every run: classes and class areas per reach, zone and segment -----------------------
         def work(run):
-            a = habitat.analyse_run(run.field, run.reach, scheme, location=run.location, progress=run.progress,
-                                    profile_bin_m=0, percentiles=False, threads=1, check_crs=False)
+            codes = scheme.classify(run.field.depth, run.field.speed)
+            ua = cv.class_areas_by_unit(run.reach, run.location, codes, run.field.area, len(scheme.names))
             r = run.row
-            areas = cv.run_areas_from_stats(r.regime, r.q_mld, scheme.names, a.reach_stats, a.zone_stats,
-                                            a.segment_stats, q_m3s=r.q_m3s, label=r.label)
-            return areas, (run.field.n, a.outside_area_m2, a.unclassified_area_m2, list(a.notes))
+            areas = cv.RunAreas(r.regime, r.q_mld, ua.class_areas, ua.wet_area, r.q_m3s, r.label)
+            return areas, (run.field.n, ua.outside_m2, ua.unclassified_m2)
 
         table = scenariorun.run_scenarios(rows, work, wet_depth_m=wet, reach=reach, workers=workers, infos=infos,
                                           progress=self.progress(feedback, 0.0, 0.85), log=feedback.pushInfo)

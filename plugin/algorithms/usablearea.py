@@ -21,8 +21,7 @@ from qgis.core import (
 
 from ..core import habitat, usable
 from ..core import suitability as su
-from ..core.classes import velocity_preset
-from ..core.curves import scope_units
+from ..core.curves import scope_units, unit_groups
 from ..core.errors import ChannelHabitatError
 from ..core.field import MeshSupport
 from ..core.reach import locate_field
@@ -128,27 +127,24 @@ flowhabitat (two at a time, chainage once per grid or mesh).</p>
         method = su.COMBINATIONS[self.parameterAsEnum(parameters, "COMBINATION", context)]
         reach = reachinput.read_reach_parameters(self, parameters, context, feedback)
         wet = self.parameterAsDouble(parameters, runinput.WET_DEPTH, context)
-        scheme = velocity_preset()  # the shared pipeline's segment/zone assignment; classes are not used
         sources = ", ".join(curve_set.sources) or "not stated in the file"
         inputs = [("Suitability curves", curve_path), ("Curve set", curve_set.label),
                   ("Variables", ", ".join(curve_set.variables)), ("Combination", method), ("Curve sources", sources),
                   ("Wet-depth threshold", wet, "m")]
 
         if table_given:
-            return self._table(parameters, context, feedback, reach, scheme, curve_set, method, wet, inputs, sources)
-        return self._single(parameters, context, feedback, reach, scheme, curve_set, method, inputs, sources)
+            return self._table(parameters, context, feedback, reach, curve_set, method, wet, inputs, sources)
+        return self._single(parameters, context, feedback, reach, curve_set, method, inputs, sources)
 
     # --- a scenario table ---------------------------------------------------------------------
-    def _table(self, parameters, context, feedback, reach, scheme, curve_set, method, wet, inputs, sources):
+    def _table(self, parameters, context, feedback, reach, curve_set, method, wet, inputs, sources):
         rows, desc, workers = scenarioinput.read_scenario_parameters(self, parameters, context)
         infos = scenariorun.preflight(rows)
 
         def work(run):
-            a = habitat.analyse_run(run.field, run.reach, scheme, location=run.location, progress=run.progress,
-                                    profile_bin_m=0, percentiles=False, threads=1, check_crs=False)
+            seg, zone = unit_groups(run.reach, run.location)
             csi, _ = usable.element_suitability(run.field.depth, run.field.speed, curve_set, method)
-            return usable.wua_per_unit(csi, run.field.area, a.segment, a.zone, run.reach.n_segments,
-                                       run.reach.n_zones)
+            return usable.wua_per_unit(csi, run.field.area, seg, zone, run.reach.n_segments, run.reach.n_zones)
 
         tab = scenariorun.run_scenarios(rows, work, wet_depth_m=wet, reach=reach, workers=workers, infos=infos,
                                         progress=self.progress(feedback, 0.0, 0.85), log=feedback.pushInfo)
@@ -166,7 +162,7 @@ flowhabitat (two at a time, chainage once per grid or mesh).</p>
         return self._write(parameters, context, table, report, report_path)
 
     # --- one run ------------------------------------------------------------------------------
-    def _single(self, parameters, context, feedback, reach, scheme, curve_set, method, inputs, sources):
+    def _single(self, parameters, context, feedback, reach, curve_set, method, inputs, sources):
         fld, src = runinput.read_run_parameters(self, parameters, context, feedback,
                                                 progress=self.progress(feedback, 0.0, 0.4))
         habitat.check_metric_crs(fld.crs_wkt, src.params["mesh" if src.is_mesh else "depth"])
@@ -175,11 +171,10 @@ flowhabitat (two at a time, chainage once per grid or mesh).</p>
         progress = self.progress(feedback, 0.4, 0.8)
         progress(0.0, "locating the run along the reach")
         loc = locate_field(reach, fld)
-        a = habitat.analyse_run(fld, reach, scheme, location=loc, progress=progress, profile_bin_m=0,
-                                percentiles=False)
-        notes += [n for n in a.notes if "match no class" not in n]
+        seg, zone = unit_groups(reach, loc)
+        notes += usable.outside_notes(seg, fld.area)
         csi, parts = usable.element_suitability(fld.depth, fld.speed, curve_set, method)
-        w = usable.wua_per_unit(csi, fld.area, a.segment, a.zone, reach.n_segments, reach.n_zones)
+        w = usable.wua_per_unit(csi, fld.area, seg, zone, reach.n_segments, reach.n_zones)
         unit = UNITS[self.parameterAsEnum(parameters, "DISCHARGE_UNIT", context)]
         q_raw = parameters.get("DISCHARGE")
         q = None if q_raw in (None, "") else self.parameterAsDouble(parameters, "DISCHARGE", context)
@@ -198,7 +193,7 @@ flowhabitat (two at a time, chainage once per grid or mesh).</p>
         results = {}
         if isinstance(fld.support, MeshSupport):
             if parameters.get("MESH_SUITABILITY") is not None:
-                cols = usable.face_table(fld, a.segment, a.zone, a.chainage, reach.zone_names, csi, parts)
+                cols = usable.face_table(fld, seg, zone, loc.chainage, reach.zone_names, csi, parts)
                 results["MESH_SUITABILITY"] = outputs.write_features(
                     self, parameters, context, "MESH_SUITABILITY", cols, face_polygons(fld.support), crs,
                     QgsWkbTypes.Polygon)

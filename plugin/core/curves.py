@@ -222,6 +222,49 @@ class RunAreas:
     label: str = ""
 
 
+def unit_groups(reach, location) -> tuple:
+    """(segment, zone) of every located element, 0-based, -1 for elements beyond the ends of the axis
+    (``location.outside``, as in every habitat statistic) or outside the edges."""
+    ch = np.asarray(location.chainage, dtype=np.float64)
+    outside = getattr(location, "outside", None)
+    seg = reach.segment_of(ch)
+    zone = reach.zone_of(ch)
+    if outside is not None:
+        out = np.asarray(outside, dtype=bool)
+        seg = np.where(out, -1, seg).astype(np.int32)
+        zone = np.where(out, -1, zone).astype(np.int32)
+    return seg, zone
+
+
+@dataclass
+class UnitClassAreas:
+    """Class areas (n_units, n_classes) and wet areas (n_units,) in scope-unit order (reach, zones,
+    segments), and the areas left out: beyond the axis ends, and matching no class."""
+
+    class_areas: np.ndarray
+    wet_area: np.ndarray
+    outside_m2: float
+    unclassified_m2: float
+
+
+def class_areas_by_unit(reach, location, codes, area, n_classes: int) -> UnitClassAreas:
+    """Area of every class (codes 1..n_classes; 0 = none) in the whole reach, each zone and each
+    segment, from one weighted count over the combined (segment, zone, class) key. The reach row is
+    the elements inside the axis; an element matching no class adds to the wet area only."""
+    seg, zone = unit_groups(reach, location)
+    area = np.asarray(area, dtype=np.float64)
+    codes = np.asarray(codes).astype(np.int64)
+    ns, nz, nc = reach.n_segments, reach.n_zones, int(n_classes)
+    key = ((seg.astype(np.int64) + 1) * (nz + 1) + (zone.astype(np.int64) + 1)) * (nc + 1) + codes
+    t = np.bincount(key, weights=area, minlength=(ns + 1) * (nz + 1) * (nc + 1)).reshape(ns + 1, nz + 1, nc + 1)
+    inside = t[1:]  # segment >= 0
+    per_seg = inside.sum(axis=1)  # (ns, nc + 1)
+    per_zone = inside.sum(axis=0)[1:]  # (nz, nc + 1)
+    per_reach = inside.sum(axis=(0, 1))[None, :]
+    rows = np.concatenate([per_reach, per_zone, per_seg])
+    return UnitClassAreas(rows[:, 1:].copy(), rows.sum(axis=1), float(t[0].sum()), float(per_reach[0, 0]))
+
+
 def run_areas_from_stats(regime: str, q_mld: float, class_names, reach_stats: dict, zone_stats: dict,
                          segment_stats: dict, q_m3s: float | None = None, label: str = "") -> RunAreas:
     """A RunAreas from the ordered columns of ``core.stats.summarise`` (``wet_area_m2`` and

@@ -41,6 +41,17 @@ def wua_per_unit(csi, area, segment, zone, n_segments: int, n_zones: int) -> dic
     return {k: np.concatenate([reach[k], zones[k], segs[k]]) for k in ("wua_m2", "wet_area_m2", "wua_fraction")}
 
 
+def outside_notes(segment, area) -> list:
+    """A note when elements lie beyond the ends of the reach axis (segment -1), else none."""
+    out = np.asarray(segment) < 0
+    if not out.any():
+        return []
+    a = float(np.asarray(area, dtype=np.float64)[out].sum())
+    total = float(np.sum(area, dtype=np.float64))
+    return [f"{int(out.sum())} wet elements ({a:,.0f} m2, {100 * a / total:.1f}% of the wet area) lie beyond the "
+            "ends of the reach axis and belong to no unit."]
+
+
 def face_table(fld, segment, zone, chainage, zone_names, csi, parts) -> dict:
     """Per-element columns of a mesh run's face layer: face (0-based number in the mesh), segment
     (1-based, 0 outside the reach), zone (name, '' outside), chainage_m, depth_m, speed_ms,

@@ -14,11 +14,11 @@ from .report import Report
 
 def runs_table(table) -> dict:
     """One row per run (table order): regime, q_mld, q_m3s, unit as written, wet elements, wet area
-    inside the reach, area beyond the axis ends, unclassified area, notes. ``table.results[i]`` is
-    (RunAreas, (n_elements, outside_m2, unclassified_m2, notes))."""
+    inside the reach, area beyond the axis ends, unclassified area. ``table.results[i]`` is
+    (RunAreas, (n_elements, outside_m2, unclassified_m2))."""
     cols = {k: [] for k in ("regime", "q_mld", "q_m3s", "unit_as_written", "n_elements", "wet_area_m2",
-                            "outside_area_m2", "unclassified_area_m2", "notes")}
-    for row, (areas, (n, outside, uncl, notes)) in zip(table.rows, table.results):
+                            "outside_area_m2", "unclassified_area_m2")}
+    for row, (areas, (n, outside, uncl)) in zip(table.rows, table.results):
         cols["regime"].append(row.regime)
         cols["q_mld"].append(row.q_mld)
         cols["q_m3s"].append(row.q_m3s)
@@ -27,7 +27,6 @@ def runs_table(table) -> dict:
         cols["wet_area_m2"].append(float(areas.wet_area[0]))
         cols["outside_area_m2"].append(float(outside))
         cols["unclassified_area_m2"].append(float(uncl))
-        cols["notes"].append(" ".join(notes))
     out = {k: np.asarray(v) for k, v in cols.items()}
     out["n_elements"] = out["n_elements"].astype(np.int64)
     return out

@@ -332,8 +332,9 @@ class GridFlow:
 
         First: the rest of the step without its component into the bank, the bank's direction taken
         from the gradient of :meth:`wet_weight` (so a particle follows a bank drawn as a staircase of
-        cells), nudged a hundredth of a cell into the water. Then: along the side of the wet cell
-        that was crossed (at a corner: along y, then along x)."""
+        cells), nudged 0.01, 0.25 or 0.5 cell into the water (rounding the inner corners of the
+        staircase). Then: along the side of the wet cell that was crossed (at a corner: along y,
+        then along x)."""
         e = 0.25 * self.size_m
         gx = (self.wet_weight(xw + e, yw) - self.wet_weight(xw - e, yw)) / (2 * e)
         gy = (self.wet_weight(xw, yw + e) - self.wet_weight(xw, yw - e)) / (2 * e)
@@ -342,8 +343,11 @@ class GridFlow:
         nx_ = np.where(has, gx / np.where(has, norm, 1.0), 0.0)
         ny_ = np.where(has, gy / np.where(has, norm, 1.0), 0.0)
         into = np.minimum(rx * nx_ + ry * ny_, 0.0)  # component into the bank (negative)
-        nudge = 0.01 * self.size_m
-        smooth = (np.where(has, rx - into * nx_ + nudge * nx_, 0.0), np.where(has, ry - into * ny_ + nudge * ny_, 0.0))
+        tx, ty = rx - into * nx_, ry - into * ny_
+        moves = []
+        for k in (0.01, 0.25, 0.5):  # nudged off the bank: round the inner corners of the staircase
+            nudge = k * self.size_m
+            moves.append((np.where(has, tx + nudge * nx_, 0.0), np.where(has, ty + nudge * ny_, 0.0)))
         cw, rw = self._cell(xw, yw)
         cd, rd = self._cell(xd, yd)
         vert = cw != cd  # crossed a side parallel to y
@@ -351,7 +355,7 @@ class GridFlow:
         zero = np.zeros_like(rx)
         along_side = (np.where(vert, zero, rx), np.where(vert, ry, zero))
         corner = (np.where(vert & horz, rx, zero), zero)
-        return [smooth, along_side, corner]
+        return moves + [along_side, corner]
 
 
 def _polygon_edges(node_x, node_y, face_nodes):
@@ -518,12 +522,15 @@ class MeshFlow:
         length = np.sqrt(l2[k, j])
         tx, ty = ex[k, j] / length, ey[k, j] / length
         proj = np.where(ok, rx * tx + ry * ty, 0.0)
-        # a hundredth of the face size off the side, into the face (towards its centroid)
+        # a hundredth (then a quarter) of the face size off the side, into the face (towards its centroid)
         cx, cy = self._centroid[f, 0], self._centroid[f, 1]
         qx, qy = -ty, tx
         sign = np.sign((cx - xw) * qx + (cy - yw) * qy)
-        nudge = np.where(ok, 0.01 * self.size[f] * sign, 0.0)
-        return [(proj * tx + nudge * qx, proj * ty + nudge * qy)]
+        moves = []
+        for k in (0.01, 0.25):
+            nudge = np.where(ok, k * self.size[f] * sign, 0.0)
+            moves.append((proj * tx + nudge * qx, proj * ty + nudge * qy))
+        return moves
 
 
 def flow_from_field(fld: HydraulicField, chainage) -> GridFlow | MeshFlow:
@@ -760,8 +767,8 @@ def _crossing(chainage_of, end_m, x0, y0, u0, v0, c0, x1, y1, u1, v1, wet1, c1, 
 def _slide(flow, xw, yw, xd, yd, rx, ry):
     """(x, y, moved): each particle moved along the wet edge by the first of the flow's candidate
     moves (whole, half or quarter) that ends in the water; unmoved particles stay at (xw, yw).
-    ``moved`` is False also for a move shorter than a hundredth of the step left plus twice the
-    nudge off the bank (a current straight into the bank)."""
+    ``moved`` is False also when the move gains less than 5 % of the step left in the step's own
+    direction (a current straight into the bank: nudges off the bank do not count)."""
     nx_, ny_ = xw.copy(), yw.copy()
     done = np.zeros(xw.size, bool)
     for mx, my in flow.bank_moves(xw, yw, xd, yd, rx, ry):
@@ -774,7 +781,9 @@ def _slide(flow, xw, yw, xd, yd, rx, ry):
             idx = todo[ok]
             nx_[idx], ny_[idx] = px[ok], py[ok]
             done[idx] = True
-    moved = done & (np.hypot(nx_ - xw, ny_ - yw) >= 0.01 * np.hypot(rx, ry) + 0.02 * flow.typical_size_m)
+    rlen = np.hypot(rx, ry)
+    progress = ((nx_ - xw) * rx + (ny_ - yw) * ry) / np.where(rlen > 0, rlen, 1.0)
+    moved = done & (progress >= 0.05 * rlen)
     return nx_, ny_, moved
 
 

@@ -98,8 +98,9 @@ class _Tables:
     v_cone: np.ndarray  # (n_vertices,) cos(turn angle): factor on the neighbouring capsules for the
     #                     fan of an interior vertex; at the two ends the half-plane clearance
     v_any: np.ndarray  # (n_vertices,) clearance in any direction (sharp vertices and ends only)
-    amb_t: np.ndarray  # (n_pieces, 2) distance from which a point is ambiguous
-    amb_code: np.ndarray  # (n_pieces, 2) reason
+    amb_step: float  # spacing of the ambiguity samples along the line
+    amb_t: np.ndarray  # (n_samples, 2) distance from which a point is ambiguous, left / right
+    amb_code: np.ndarray  # (n_samples, 2) reason
 
 
 # ------------------------------------------------------------------------------------------------
@@ -377,13 +378,12 @@ class PolylineIndex:
         whi = np.clip(np.maximum(whi, ids + 1), 0, nseg - 1).astype(np.int32)
         mx = 0.5 * (ex[:-1] + ex[1:])
         my = 0.5 * (ey[:-1] + ey[1:])
-        m_along = 0.5 * (e_along[:-1] + e_along[1:])
         rho = self._piece_clearance(cap, h, seg, plen, mx, my, wlo, whi)
-        amb_t, amb_code = self._ambiguity_tables(cap, h, m_along, seg)
+        amb_step, amb_t, amb_code = self._ambiguity_tables(cap)
         v_side, v_cone, v_any = self._vertex_clearance(cap, h, wlo, whi)
         return _Tables(cap, h, margin, wlo, whi, first.astype(np.int32), count.astype(np.int32),
                        np.minimum(rho, cap), v_side, v_cone, np.minimum(v_any, cap),
-                       amb_t, amb_code)
+                       amb_step, amb_t, amb_code)
 
     def _point_at(self, along):
         """Coordinates and segment of points at the given along-line positions (local frame)."""
@@ -473,9 +473,10 @@ class PolylineIndex:
         gm = _group_min(pp[li] - b0, rv, b1 - b0)
         rho[b0:b1, side] = np.minimum(rho[b0:b1, side], gm)
 
-    def _ambiguity_tables(self, cap, h, m_along, seg):
-        """Ambiguity threshold per piece and side, evaluated on the line resampled every h (the
-        piece takes the value of the sample at its middle)."""
+    def _ambiguity_tables(self, cap):
+        """Ambiguity threshold per side at samples every ``step`` along the line (a point takes the
+        value of the sample interval holding its foot)."""
+        h = float(max(min(cap / 32.0, self.length / 64.0), 0.25))
         n_s = max(int(math.ceil(self.length / h)), 1)
         step = self.length / n_s
         f_along = (np.arange(n_s) + 0.5) * step
@@ -515,8 +516,7 @@ class PolylineIndex:
                 amb_t[b0:b1, side] = gm
                 hit = np.isfinite(dv) & (dv <= gm[p - b0])
                 amb_code[p[hit], side] = code[hit]
-        k = np.minimum((m_along / step).astype(np.int64), n_s - 1)
-        return amb_t[k], amb_code[k]
+        return step, amb_t, amb_code
 
     def _vertex_clearance(self, cap, h, wlo, whi):
         """Clearances for feet exactly at a vertex.
@@ -811,9 +811,9 @@ class PolylineIndex:
     def _ambiguity(self, tb, seg, along, off, X, Y):
         d = np.abs(off)
         side = (off < 0).astype(np.int8)
-        piece = self._piece(tb, seg, along)
-        flag = (d >= tb.amb_t[piece, side]) & (d > 0)
-        out = np.where(flag, tb.amb_code[piece, side], AMBIGUITY_NONE).astype(np.uint8)
+        k = np.minimum(((self.cum[seg] + along) * (1.0 / tb.amb_step)).astype(np.int64), len(tb.amb_t) - 1)
+        flag = (d >= tb.amb_t[k, side]) & (d > 0)
+        out = np.where(flag, tb.amb_code[k, side], AMBIGUITY_NONE).astype(np.uint8)
         far = np.flatnonzero(d > tb.cap)
         if far.size:
             out[far] = self._ambiguity_exact(X[far], Y[far], seg[far], along[far], d[far])

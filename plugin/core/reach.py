@@ -521,12 +521,16 @@ def check_simple(x, y, crs_wkt: str = "") -> None:
     segs = shapely.linestrings(np.stack([pts[:-1], pts[1:]], axis=1))
     tree = shapely.STRtree(segs)
     i, j = tree.query(segs, predicate="intersects")
-    bad = (j > i + 1)
+    bad = j > i + 1
+    adj = np.flatnonzero(j == i + 1)  # neighbours share a vertex; more than that is a fold-back
+    if adj.size:
+        folded = shapely.length(shapely.intersection(segs[i[adj]], segs[j[adj]])) > 0
+        bad[adj[folded]] = True
     if not bad.any():
         return
     a, b = int(i[bad][0]), int(j[bad][0])
     p = shapely.intersection(segs[a], segs[b])
-    c = shapely.centroid(p)
+    c = shapely.get_point(p, 0) if p.geom_type == "LineString" else shapely.centroid(p)
     seg_len = np.hypot(np.diff(x), np.diff(y))
     cum = np.concatenate([[0.0], np.cumsum(seg_len)])
     ca = cum[a] + math.hypot(c.x - x[a], c.y - y[a])
@@ -666,8 +670,8 @@ def axis_features(axis: ReachAxis, within_m: float, detour: float = 3.0, step_m:
                 k = k_run[np.argmin(best[k_run])]
                 if c[k] < c[other[k]]:  # each neck once, from its upstream side
                     feats.append(AxisFeature("neck", float(c[k]), float(c[other[k]]), float(best[k])))
-    # bends: radius from the turn of the tangent over +-(within_m) along the line
-    w = max(int(round(within_m / step)), 1)
+    # bends: radius from the turn of the tangent over +-(within_m / 4) along the line
+    w = max(int(round(0.25 * within_m / step)), 1)
     if n > 2 * w:
         a1 = ang[: n + 1 - 2 * w]
         a2 = ang[2 * w:]

@@ -136,11 +136,16 @@ def cells_within(ch: Channel, half_width: float, cell: float, spacing: float = 1
     X, Y = np.meshgrid(gx, gy)
     X = X.ravel()
     Y = Y.ravel()
-    # coarse filter by distance to a fine polyline, then exact
-    from scipy.spatial import cKDTree
+    # coarse filter: distance transform of the rasterised curve (scipy.ndimage), then exact
+    from scipy import ndimage
 
-    d0, _ = cKDTree(np.column_stack([x, y])).query(np.column_stack([X, Y]), workers=-1)
-    m = d0 <= half_width + spacing
+    xf, yf, _ = ch.polyline(cell / 4.0)
+    cols = np.clip(np.floor((xf - gx[0] + cell / 2) / cell).astype(int), 0, len(gx) - 1)
+    rows = np.clip(np.floor((yf - gy[0] + cell / 2) / cell).astype(int), 0, len(gy) - 1)
+    img = np.ones((len(gy), len(gx)), dtype=bool)
+    img[rows, cols] = False
+    d0 = ndimage.distance_transform_edt(img).ravel() * cell
+    m = d0 <= half_width + 2 * cell
     X, Y = X[m], Y[m]
     s, d, second = ch.exact(X, Y)
     keep = (d <= half_width) & (s > 0) & (s < ch.length)

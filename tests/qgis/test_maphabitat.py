@@ -478,3 +478,138 @@ def test_cancel_leaves_no_outputs(provider, tmp_path):
                                                      "CLASSES": str(tmp_path / "c.tif"), **outputs(tmp_path)},
                        context=QgsProcessingContext(), feedback=fb)
     assert not (tmp_path / "c.tif").exists() and not (tmp_path / "report.html").exists()
+
+
+# ------------------------------------------------------------------------------------------------
+# The demo reach (sample_gis/generated): rasters and the mesh of the weir regime
+# ------------------------------------------------------------------------------------------------
+
+def _upstream_first(sample_dir, tmp_path):
+    """The demo centreline digitised upstream -> downstream (the file runs the other way on purpose),
+    and the same line as a shapely LineString."""
+    from osgeo import ogr
+
+    src = ogr.Open(str(sample_dir / "centreline.gpkg"))
+    lyr = src.GetLayer(0)
+    feat = lyr.GetNextFeature()
+    geom = feat.GetGeometryRef()
+    pts = geom.GetPoints()[::-1]
+    srs = lyr.GetSpatialRef().Clone()
+    del geom, feat, lyr, src
+    path = tmp_path / "centreline_up.gpkg"
+    ds = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
+    out = ds.CreateLayer("centreline", srs, ogr.wkbLineString)
+    line = ogr.Geometry(ogr.wkbLineString)
+    for p in pts:
+        line.AddPoint_2D(p[0], p[1])
+    f = ogr.Feature(out.GetLayerDefn())
+    f.SetGeometry(line)
+    out.CreateFeature(f)
+    del f, out, ds
+    return str(path) + "|layername=centreline", shapely.LineString([p[:2] for p in pts])
+
+
+@pytest.fixture(scope="module")
+def demo_runs(sample_dir, provider, tmp_path_factory):
+    import csv
+
+    import processing
+
+    tmp = tmp_path_factory.mktemp("demo")
+    cl, line = _upstream_first(sample_dir, tmp)
+    mesh_rows = list(csv.DictReader(open(sample_dir / "scenarios_mesh.csv", encoding="utf-8")))
+    mrow = next(r for r in mesh_rows if r["regime"] == "weir")
+    q = float(mrow["discharge"])
+    rrow = next(r for r in csv.DictReader(open(sample_dir / "scenarios.csv", encoding="utf-8"))
+                if r["regime"] == "weir" and float(r["discharge"]) == q)
+    common = {"CENTRELINE": cl, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": ""}
+
+    def run(params):
+        return processing.run("channelhabitat:maphabitat", params, context=QgsProcessingContext(),
+                              feedback=QgsProcessingFeedback())
+
+    (tmp / "r").mkdir()
+    (tmp / "m").mkdir()
+    raster = run({**common, "DEPTH": str(sample_dir / rrow["depth"]), "SPEED": str(sample_dir / rrow["speed"]),
+                  "CLASSES": str(tmp / "r" / "classes.tif"), **outputs(tmp / "r")})
+    layer = QgsMeshLayer(str(sample_dir / mrow["mesh"]), "mesh", "mdal")
+    mesh = run({**common, "MESH": layer, "MESH_DEPTH_GROUP": mrow["depth_group"],
+                "MESH_VELOCITY_GROUP": mrow["velocity_group"], "MESH_CLASSES": str(tmp / "m" / "faces.gpkg"),
+                **outputs(tmp / "m")})
+    return {"raster": raster, "mesh": mesh, "line": line, "depth": str(sample_dir / rrow["depth"]),
+            "speed": str(sample_dir / rrow["speed"]), "q": q}
+
+
+def _shapely_chainage(line, x, y):
+    """Distance along ``line`` of the nearest point to each (x, y): the nearest line piece by shapely's
+    STRtree, then shapely's line_locate_point on that piece (independent of core/reach and core/locate)."""
+    xy = shapely.get_coordinates(line)
+    pieces = shapely.linestrings(np.stack([xy[:-1], xy[1:]], axis=1))
+    start = np.concatenate([[0.0], np.cumsum(shapely.length(pieces))])[:-1]
+    pts = shapely.points(x, y)
+    which = shapely.STRtree(pieces).query_nearest(pts, all_matches=False)
+    ch = np.empty(len(x))
+    ch[which[0]] = start[which[1]] + shapely.line_locate_point(pieces[which[1]], pts[which[0]])
+    return ch
+
+
+def test_demo_raster_run_against_shapely_chainage(demo_runs):
+    """Segment statistics of the demo raster run against an independent computation: chainage of every wet
+    cell by shapely's line_locate_point, percentiles by numpy."""
+    d_ds, s_ds = gdal.Open(demo_runs["depth"]), gdal.Open(demo_runs["speed"])
+    d = d_ds.GetRasterBand(1).ReadAsArray()
+    s = s_ds.GetRasterBand(1).ReadAsArray()
+    nd = d_ds.GetRasterBand(1).GetNoDataValue()
+    gt = d_ds.GetGeoTransform()
+    wet = (d != nd) & np.isfinite(d) & (d >= 0.05)
+    rows, cols = np.nonzero(wet)
+    x = gt[0] + (cols + 0.5) * gt[1]
+    y = gt[3] + (rows + 0.5) * gt[5]
+    line = demo_runs["line"]
+    ch = _shapely_chainage(line, x, y)
+    inside = (ch > 0) & (ch < line.length)
+    spd = s[wet].astype(float)
+    cell = abs(gt[1] * gt[5])
+    _, seg = table(demo_runs["raster"]["SEGMENT_STATS"])
+    assert len(seg) == int(np.ceil(line.length / 1000.0))
+    for r in seg:
+        m = inside & (ch >= r["chainage_from_m"]) & (ch < r["chainage_to_m"])
+        assert r["wet_area_m2"] == pytest.approx(cell * m.sum(), rel=0.002)
+        assert r["v_p50_ms"] == pytest.approx(np.percentile(spd[m], 50), abs=0.003)
+        assert r["v_p90_ms"] == pytest.approx(np.percentile(spd[m], 90), abs=0.003)
+        assert sum(r[f"pct_{k}"] for k in KEYS) == pytest.approx(100.0)
+    _, zones = table(demo_runs["raster"]["ZONE_STATS"])
+    assert [z["zone"] for z in zones] == ["upper", "middle", "lower"]
+    assert sum(z["wet_area_m2"] for z in zones) == pytest.approx(cell * inside.sum(), rel=1e-3)
+    # the weir pool slows the water towards the downstream end (plausibility of the invented reach)
+    assert zones[0]["v_p50_ms"] > zones[2]["v_p50_ms"]
+    _, patches, geoms = table(demo_runs["raster"]["PATCHES"], geometry=True)
+    assert all(shapely.is_valid(g) for g in geoms)
+    assert sum(p["area_m2"] for p in patches) == pytest.approx(sum(r["wet_area_m2"] for r in seg))
+    ds = gdal.Open(demo_runs["raster"]["CLASSES"])
+    codes = ds.GetRasterBand(1).ReadAsArray()
+    np.testing.assert_array_equal(codes[wet], expected_codes(s[wet].astype(np.float32)))
+
+
+def test_demo_raster_and_mesh_of_the_weir_run_agree(demo_runs):
+    """The weir regime as rasters (5 m cells) and as a mesh (about 10 m faces) of the same run: the same
+    statistics within discretisation error (numbers in the maphabitat report of the developer)."""
+    _, rz = table(demo_runs["raster"]["ZONE_STATS"])
+    _, mz = table(demo_runs["mesh"]["ZONE_STATS"])
+    for a, b in zip(rz, mz):
+        assert b["wet_area_m2"] == pytest.approx(a["wet_area_m2"], rel=0.02)
+        assert b["v_p50_ms"] == pytest.approx(a["v_p50_ms"], abs=0.01)
+        assert b["v_p90_ms"] == pytest.approx(a["v_p90_ms"], abs=0.01)
+        assert b["v_mean_ms"] == pytest.approx(a["v_mean_ms"], abs=0.01)
+        assert b["d_p50_m"] == pytest.approx(a["d_p50_m"], abs=0.05)
+        for k in KEYS:
+            assert b[f"pct_{k}"] == pytest.approx(a[f"pct_{k}"], abs=2.0)
+    _, rs = table(demo_runs["raster"]["SEGMENT_STATS"])
+    _, ms = table(demo_runs["mesh"]["SEGMENT_STATS"])
+    p50 = np.array([b["v_p50_ms"] - a["v_p50_ms"] for a, b in zip(rs, ms)])
+    area = np.array([b["wet_area_m2"] / a["wet_area_m2"] - 1 for a, b in zip(rs, ms)])
+    assert np.abs(p50).max() < 0.05 and np.median(np.abs(p50)) < 0.01
+    assert np.abs(area).max() < 0.10 and np.median(np.abs(area)) < 0.02
+    names, faces = table(demo_runs["mesh"]["MESH_CLASSES"])
+    assert len(faces) > 1000 and {"face", "class", "speed_ms", "area_m2"} <= set(names)
+    assert sum(f["area_m2"] for f in faces if f["segment"] > 0) == pytest.approx(sum(z["wet_area_m2"] for z in mz))

@@ -899,7 +899,11 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
         frac = np.ones(m)  # share of the step actually travelled (end crossing, exit)
         stop = np.full(m, -1, dtype=np.int8)
         # crossing the end chainage (checked first: the grid or mesh may end right there)
-        cand = np.flatnonzero(~nxt.wet | (nxt.chainage >= end_m - 2.0 * h_typ))
+        near_end = end_m - 2.0 * h_typ
+        # how far down the axis the step can have reached (chainage runs faster than the water on the
+        # inside of a bend: up to R / (R - offset); a factor of 4 covers offsets up to 3/4 of R)
+        reach_ = cur.chainage + 4.0 * np.hypot(xn - x, yn - y) + h_typ
+        cand = np.flatnonzero((nxt.wet & (nxt.chainage >= near_end)) | (~nxt.wet & (reach_ >= near_end)))
         if cand.size:
             c_new = np.asarray(exact_chainage(xn[cand], yn[cand]), dtype=np.float64)
             hit = c_new >= end_m

@@ -157,7 +157,10 @@ def chainage_polygons(axis, edges, extent, sample_m: float | None = None, progre
         if len(sel) == 0:
             out.append(shapely.Polygon())
             continue
-        region = shapely.coverage_union_all(sel)
+        try:
+            region = shapely.coverage_union_all(sel)
+        except shapely.errors.GEOSException:  # cells off by rounding: the general (slower) union
+            region = shapely.union_all(sel)
         piece = shapely.intersection(region, ext)
         piece = shapely.union_all([g for g in shapely.get_parts(piece)
                                    if g.geom_type in ("Polygon", "MultiPolygon") and g.area > 0])
@@ -185,9 +188,22 @@ def post_chainages(axis, spacing_m: float):
     return segment_edges(axis.start_m, axis.end_m, spacing_m)
 
 
-def post_label(chainage_m: float) -> str:
-    """'km 12', or 'km 12.5' / 'km 12.25' when the post is not on a whole kilometre."""
-    km = round(chainage_m / 1000.0, 3)
-    if abs(km - round(km)) < 1e-9:
+def label_decimals(spacing_m: float) -> int:
+    """Decimals of km needed to write posts every ``spacing_m`` (1000 -> 0, 500 -> 1, 250 -> 2)."""
+    for d in range(4):
+        v = spacing_m / 1000.0 * 10 ** d
+        if abs(v - round(v)) < 1e-6:
+            return d
+    return 3
+
+
+def post_label(chainage_m: float, decimals: int | None = None) -> str:
+    """'km 12'; a post off the whole kilometre gets ``decimals`` decimals (at least one; by
+    default as many as it needs, up to three): 'km 12.5', 'km 34.999' (decimals=None),
+    'km 35.0' (decimals=1)."""
+    km = chainage_m / 1000.0
+    if abs(km - round(km)) < 5e-7:
         return f"km {int(round(km))}"
-    return f"km {km:.3f}".rstrip("0")
+    if decimals is None:
+        return f"km {round(km, 3):.3f}".rstrip("0")
+    return f"km {km:.{max(decimals, 1)}f}"

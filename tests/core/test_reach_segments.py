@@ -14,6 +14,7 @@ from plugin.core.segments import (
     buffer_extent,
     chainage_polygons,
     interval_table,
+    label_decimals,
     post_chainages,
     post_label,
 )
@@ -155,3 +156,5 @@ def test_tables_and_posts():
     axis = ReachAxis([0.0, 2350.0], [0.0, 0.0], UTM, datum_m=12000.0)
     np.testing.assert_allclose(post_chainages(axis, 1000.0), [12000, 13000, 14000, 14350])
     assert [post_label(c) for c in (12000.0, 12500.0, 14350.0, 0.0)] == ["km 12", "km 12.5", "km 14.35", "km 0"]
+    assert [post_label(c, label_decimals(1000.0)) for c in (13000.0, 34999.35)] == ["km 13", "km 35.0"]
+    assert [post_label(c, label_decimals(250.0)) for c in (250.0, 1500.0, 2000.0)] == ["km 0.25", "km 1.50", "km 2"]

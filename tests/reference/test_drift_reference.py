@@ -142,3 +142,37 @@ def test_time_in_each_class_in_a_linear_field():
     assert np.all(np.abs(got - expected) <= 0.5 * step_at_bound)
     # time in classes sums to the travel time (definition; common practice, no source)
     assert got.sum() + res.class_time_s[0, 0] == pytest.approx(res.travel_s[0], rel=1e-12)
+
+
+def test_default_step_on_an_interpolated_grid_field_matches_solve_ivp_on_the_same_field():
+    # Source: reference library - scipy.integrate.solve_ivp (DOP853) integrating the very same
+    # bilinear (wet-only) grid field, so only the step rule is tested: a meandering channel whose
+    # banks are streamlines, 2 m cells, the default Courant number 1.
+    A, k, half, U0 = 15.0, 2 * np.pi / 800, 30.0, 0.3
+
+    def eta(x, y):
+        return (y - A * np.sin(k * x)) / half
+
+    def u_fn(x, y):
+        return 1.5 * U0 * (1 - eta(x, y) ** 2)
+
+    def v_fn(x, y):
+        return u_fn(x, y) * A * k * np.cos(k * x)
+
+    fld = grid_field(450, 50, 2.0, u_fn, v_fn, wet_fn=lambda x, y: np.abs(eta(x, y)) < 1)
+    flow = D.flow_from_field(fld, fld.x)
+    y0 = np.array([-20.0, 0.0, 20.0])
+    res = D.track(flow, np.full(3, 2.0), y0, VEL, end_m=800.0, exact_chainage=x_chainage)
+
+    def rhs(t, p):
+        s = flow.sample(np.array([p[0]]), np.array([p[1]]))
+        return [s.u[0], s.v[0]]
+
+    def hit(t, p):
+        return p[0] - 800.0
+
+    hit.terminal = True
+    for i in range(3):
+        sol = solve_ivp(rhs, (0, 1e6), [2.0, y0[i]], method="DOP853", rtol=1e-10, atol=1e-8, events=hit,
+                        max_step=5.0)
+        assert res.travel_s[i] == pytest.approx(sol.t_events[0][0], rel=2e-5)

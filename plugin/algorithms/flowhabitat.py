@@ -97,12 +97,12 @@ nothing is extrapolated beyond the runs.</p>
     def compute(self, parameters, context, feedback):
         # --- inputs (everything checked before a run is read) --------------------------------------
         rows, table_desc, workers = scenarioinput.read_scenario_parameters(self, parameters, context)
-        reach = reachinput.read_reach_parameters(self, parameters, context, feedback)
+        infos = scenariorun.preflight(rows)  # file headers: CRS and grids, mixed CRS refused
+        reach = reachinput.read_reach_parameters(self, parameters, context, feedback, target_crs_wkt=infos[0].crs_wkt)
         scheme = schemeinput.read_scheme_parameters(self, parameters, context, feedback)
         wet = self.parameterAsDouble(parameters, WET_DEPTH, context)
         targets = cv.parse_targets(self.parameterAsString(parameters, TARGET_STATEMENTS, context), reach.zone_names,
                                    scheme.names, reach.n_segments, parameter=TARGET_STATEMENTS)
-        infos = scenariorun.preflight(rows)
         feedback.pushInfo(f"{len(rows)} runs of {len(set(r.regime for r in rows))} regime(s) from {table_desc}")
 
         # --- every run: classes and class areas per reach, zone and segment -----------------------

@@ -125,7 +125,6 @@ flowhabitat (two at a time, chainage once per grid or mesh).</p>
         curve_set = su.select_curve_set(su.read_suitability_csv(curve_path),
                                         self.parameterAsString(parameters, "CURVE_SET", context))
         method = su.COMBINATIONS[self.parameterAsEnum(parameters, "COMBINATION", context)]
-        reach = reachinput.read_reach_parameters(self, parameters, context, feedback)
         wet = self.parameterAsDouble(parameters, runinput.WET_DEPTH, context)
         sources = ", ".join(curve_set.sources) or "not stated in the file"
         inputs = [("Suitability curves", curve_path), ("Curve set", curve_set.label),
@@ -133,13 +132,14 @@ flowhabitat (two at a time, chainage once per grid or mesh).</p>
                   ("Wet-depth threshold", wet, "m")]
 
         if table_given:
-            return self._table(parameters, context, feedback, reach, curve_set, method, wet, inputs, sources)
-        return self._single(parameters, context, feedback, reach, curve_set, method, inputs, sources)
+            return self._table(parameters, context, feedback, curve_set, method, wet, inputs, sources)
+        return self._single(parameters, context, feedback, curve_set, method, inputs, sources)
 
     # --- a scenario table ---------------------------------------------------------------------
-    def _table(self, parameters, context, feedback, reach, curve_set, method, wet, inputs, sources):
+    def _table(self, parameters, context, feedback, curve_set, method, wet, inputs, sources):
         rows, desc, workers = scenarioinput.read_scenario_parameters(self, parameters, context)
         infos = scenariorun.preflight(rows)
+        reach = reachinput.read_reach_parameters(self, parameters, context, feedback, target_crs_wkt=infos[0].crs_wkt)
 
         def work(run):
             seg, zone = unit_groups(run.reach, run.location)
@@ -162,12 +162,12 @@ flowhabitat (two at a time, chainage once per grid or mesh).</p>
         return self._write(parameters, context, table, report, report_path)
 
     # --- one run ------------------------------------------------------------------------------
-    def _single(self, parameters, context, feedback, reach, curve_set, method, inputs, sources):
+    def _single(self, parameters, context, feedback, curve_set, method, inputs, sources):
         fld, src = runinput.read_run_parameters(self, parameters, context, feedback,
                                                 progress=self.progress(feedback, 0.0, 0.4))
         habitat.check_metric_crs(fld.crs_wkt, src.params["mesh" if src.is_mesh else "depth"])
-        reach, note = habitat.reach_in_crs(reach, fld.crs_wkt)
-        notes = list(fld.notes) + ([note] if note else [])
+        reach = reachinput.read_reach_parameters(self, parameters, context, feedback, target_crs_wkt=fld.crs_wkt)
+        notes = list(fld.notes)
         progress = self.progress(feedback, 0.4, 0.8)
         progress(0.0, "locating the run along the reach")
         loc = locate_field(reach, fld)

@@ -105,7 +105,7 @@ def make_panel_inputs(out: str) -> dict:
         patches.append(({"class": NAMES[k], "area_m2": float(ring.area)}, ring))
     _write_layer(f"{out}/patches.gpkg", "patches", ogr.wkbMultiPolygon,
                  [("class", ogr.OFTString), ("area_m2", ogr.OFTReal)],
-                 [(a, shapely.MultiPolygon(shapely.get_parts(g))) for a, g in patches], srs)
+                 [(a, shapely.MultiPolygon(list(shapely.get_parts(g)))) for a, g in patches], srs)
     ch = np.concatenate([[0.0], np.cumsum(np.hypot(np.diff(x), np.diff(y)))])
     g = ogr.Geometry(ogr.wkbLineStringM)
     for a, b, m in zip(x, y, ch):

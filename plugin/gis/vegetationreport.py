@@ -72,6 +72,28 @@ def edge_chart(summary, scheme):
     return fig
 
 
+def headlines(table, scheme) -> list:
+    """One sentence per run: wetted share of all the vegetation, stands wetted, and how many stands
+    have each class as the main water beside them."""
+    runs = list(dict.fromkeys(table["run"]))
+    run_col = np.asarray(table["run"], dtype=object)
+    area = np.asarray(table["area_m2"], dtype=float)
+    wet = np.asarray(table["wet_area_m2"], dtype=float)
+    main = np.asarray(table["edge_main_class"], dtype=object)
+    out = []
+    for r in runs:
+        m = run_col == r
+        n = int(m.sum())
+        share = 100.0 * wet[m].sum() / area[m].sum() if area[m].sum() > 0 else float("nan")
+        counts = [f"{name} {int(np.count_nonzero(main[m] == name))}" for name in scheme.names
+                  if np.count_nonzero(main[m] == name)]
+        none = int(np.count_nonzero(main[m] == ""))
+        beside = ", ".join(counts + ([f"no water within the edge distance {none}"] if none else []))
+        out.append(f"{r}: {share:.1f} % of the vegetation area wetted ({int(np.count_nonzero(wet[m] > 0))} of "
+                   f"{n} stands); main water beside the stands: {beside}.")
+    return out
+
+
 def build_report(table, summary, scheme, distance_m, notes) -> Report:
     runs = _runs(summary)
     n_stands = len(set(np.asarray(table["stand_id"]).tolist()))
@@ -79,6 +101,8 @@ def build_report(table, summary, scheme, distance_m, notes) -> Report:
                  subtitle=f"{n_stands} stands, {len(runs)} run(s)")
     rep.summary([("Stands", n_stands), ("Communities", len(set(summary["community"]))), ("Runs", len(runs)),
                  ("Edge distance", distance_m, "m"), ("Class scheme", scheme.name)], heading="Overlay")
+    rep.section("In short")
+    rep.bullets(headlines(table, scheme))
     rep.section("Wetted share of each community",
                 "Wetted area of the stands (stand ∩ wet cells or faces, exact) as a share of their area.")
     rep.figure(wetted_chart(summary), caption="Wetted share of the stand area per community and run")

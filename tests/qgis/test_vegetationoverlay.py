@@ -135,6 +135,8 @@ def test_single_run_against_shapely(run_alg, tmp_path):
     with open(res["REPORT"], encoding="utf-8") as fh:
         html = fh.read()
     assert "Vegetation overlay" in html and "licensed professional practice" in html and "reeds" in html
+    share = 100 * sum(shapely.intersection(g, water).area for g in STANDS) / sum(g.area for g in STANDS)
+    assert f"weir 3000 ML/d: {share:.1f} % of the vegetation area wetted" in html  # reference: shapely
 
 
 def test_scenario_table_regimes_and_reprojection(run_alg, tmp_path):

@@ -38,6 +38,8 @@ Stopping rules (``fate``)
   another is given, or - when the wet field of the run ends further upstream - five element sizes
   upstream of the field's end (the last cross-sections fully inside the model). The crossing point
   and time within the last step come from the step's cubic Hermite path and exact axis chainages.
+  Leaving the model's extent within half an element of the end chainage (a model boundary drawn at
+  the end of the axis) counts as reaching it.
 * ``upstream``: left the wet area upstream of its release chainage.
 * ``stranded``: met a bank (a dry or no-data element inside the model) and stopped there: at the first
   contact with the ``strand`` bank rule; with the default ``slide`` rule only when it cannot slide on
@@ -190,9 +192,10 @@ class AnalyticFlow:
     def outside(self, x, y) -> np.ndarray:
         return np.zeros(np.shape(x), bool)
 
-    def bank_moves(self, xw, yw, xd, yd, rx, ry) -> list:
+    def bank_moves(self, xw, yw, xd, yd, rx, ry) -> tuple:
         """No bank geometry: a particle at the edge of an analytic wet area cannot slide."""
-        return []
+        zero = np.zeros_like(rx)
+        return [], zero, zero, zero
 
     def element_size(self, where) -> np.ndarray:
         return np.full(np.shape(where), self.size_m)
@@ -326,36 +329,26 @@ class GridFlow:
         w = (p[:, None, 1, :] * p[None, :, 0, :]).reshape(4, n)
         return (w * wet).sum(axis=0)
 
-    def bank_moves(self, xw, yw, xd, yd, rx, ry) -> list:
+    def bank_moves(self, xw, yw, xd, yd, rx, ry) -> tuple:
         """Candidate moves along the wet edge for a particle that met it between the last wet point
-        (xw, yw) and the first dry point (xd, yd), with (rx, ry) of its step left.
+        (xw, yw) and the first dry point (xd, yd), with (rx, ry) of its step left; and the unit
+        direction and length of the rest of the step along the bank (see :func:`_along_bank`).
 
-        First: the rest of the step without its component into the bank, the bank's direction taken
-        from the gradient of :meth:`wet_weight` (so a particle follows a bank drawn as a staircase of
-        cells), nudged 0.01, 0.25 or 0.5 cell into the water (rounding the inner corners of the
-        staircase). Then: along the side of the wet cell that was crossed (at a corner: along y,
-        then along x)."""
+        The bank's direction is taken from the gradient of :meth:`wet_weight`, so a particle follows a
+        bank drawn as a staircase of cells; then: along the side of the wet cell that was crossed (at
+        a corner: along y, then along x)."""
         e = 0.25 * self.size_m
         gx = (self.wet_weight(xw + e, yw) - self.wet_weight(xw - e, yw)) / (2 * e)
         gy = (self.wet_weight(xw, yw + e) - self.wet_weight(xw, yw - e)) / (2 * e)
-        norm = np.hypot(gx, gy)
-        has = norm > 0
-        nx_ = np.where(has, gx / np.where(has, norm, 1.0), 0.0)
-        ny_ = np.where(has, gy / np.where(has, norm, 1.0), 0.0)
-        into = np.minimum(rx * nx_ + ry * ny_, 0.0)  # component into the bank (negative)
-        tx, ty = rx - into * nx_, ry - into * ny_
-        moves = []
-        for k in (0.01, 0.25, 0.5):  # nudged off the bank: round the inner corners of the staircase
-            nudge = k * self.size_m
-            moves.append((np.where(has, tx + nudge * nx_, 0.0), np.where(has, ty + nudge * ny_, 0.0)))
+        moves, tx, ty, tlen = _along_bank(rx, ry, gx, gy, self.size_m)
         cw, rw = self._cell(xw, yw)
         cd, rd = self._cell(xd, yd)
         vert = cw != cd  # crossed a side parallel to y
         horz = rw != rd
         zero = np.zeros_like(rx)
-        along_side = (np.where(vert, zero, rx), np.where(vert, ry, zero))
-        corner = (np.where(vert & horz, rx, zero), zero)
-        return moves + [along_side, corner]
+        moves.append((np.where(vert, zero, rx), np.where(vert, ry, zero)))
+        moves.append((np.where(vert & horz, rx, zero), zero))
+        return moves, tx, ty, tlen
 
 
 def _polygon_edges(node_x, node_y, face_nodes):
@@ -503,34 +496,40 @@ class MeshFlow:
         """Points in no face of the mesh."""
         return self.locate(x, y) < 0
 
-    def bank_moves(self, xw, yw, xd, yd, rx, ry) -> list:
-        """The move along the wet edge: the rest of the step (rx, ry) projected on the side of the
-        last wet face nearest the last wet point (the side the particle met)."""
+    def bank_moves(self, xw, yw, xd, yd, rx, ry) -> tuple:
+        """Candidate moves along the wet edge (see :func:`_along_bank`): the bank's inward normal is
+        the sum of the inward normals of the sides of the last wet face that border dry faces or
+        the mesh's edge (a corner face gives the diagonal); without such a side, the side nearest the
+        last wet point."""
         face = self.locate(xw, yw)
         ok = face >= 0
         f = np.where(ok, face, 0)
         ax, ay, bx, by = self.ax[f], self.ay[f], self.bx[f], self.by[f]
         ex, ey = bx - ax, by - ay
-        l2 = ex * ex + ey * ey
+        length = np.hypot(ex, ey)
+        valid = length > 0
+        safe = np.where(valid, length, 1.0)
+        qx, qy = -ey / safe, ex / safe  # unit normals of the sides
+        cx, cy = self._centroid[f, 0][:, None], self._centroid[f, 1][:, None]
+        inward = np.sign((cx - 0.5 * (ax + bx)) * qx + (cy - 0.5 * (ay + by)) * qy)
+        qx, qy = qx * inward, qy * inward
+        nb = self.neighbours[f]
+        dry_side = valid & ((nb < 0) | ~self.wet[np.where(nb >= 0, nb, self.nf)])
+        nx_ = np.where(dry_side, qx, 0.0).sum(axis=1)
+        ny_ = np.where(dry_side, qy, 0.0).sum(axis=1)
+        # fallback: the side nearest the last wet point
         px, py = xw[:, None], yw[:, None]
         with np.errstate(invalid="ignore", divide="ignore"):
-            t = np.clip(((px - ax) * ex + (py - ay) * ey) / l2, 0.0, 1.0)
-        d2 = (ax + t * ex - px) ** 2 + (ay + t * ey - py) ** 2
-        d2 = np.where(l2 > 0, d2, np.inf)
+            t = np.clip(((px - ax) * ex + (py - ay) * ey) / (safe * safe), 0.0, 1.0)
+        d2 = np.where(valid, (ax + t * ex - px) ** 2 + (ay + t * ey - py) ** 2, np.inf)
         j = np.argmin(d2, axis=1)
         k = np.arange(face.size)
-        length = np.sqrt(l2[k, j])
-        tx, ty = ex[k, j] / length, ey[k, j] / length
-        proj = np.where(ok, rx * tx + ry * ty, 0.0)
-        # a hundredth (then a quarter) of the face size off the side, into the face (towards its centroid)
-        cx, cy = self._centroid[f, 0], self._centroid[f, 1]
-        qx, qy = -ty, tx
-        sign = np.sign((cx - xw) * qx + (cy - yw) * qy)
-        moves = []
-        for k in (0.01, 0.25):
-            nudge = np.where(ok, k * self.size[f] * sign, 0.0)
-            moves.append((proj * tx + nudge * qx, proj * ty + nudge * qy))
-        return moves
+        none = np.hypot(nx_, ny_) == 0
+        nx_ = np.where(none, qx[k, j], nx_)
+        ny_ = np.where(none, qy[k, j], ny_)
+        nx_ = np.where(ok, nx_, 0.0)
+        ny_ = np.where(ok, ny_, 0.0)
+        return _along_bank(rx, ry, nx_, ny_, self.size[f])
 
 
 def flow_from_field(fld: HydraulicField, chainage) -> GridFlow | MeshFlow:
@@ -764,14 +763,37 @@ def _crossing(chainage_of, end_m, x0, y0, u0, v0, c0, x1, y1, u1, v1, wet1, c1, 
     return s, px, py
 
 
+def _along_bank(rx, ry, gx, gy, size):
+    """(moves, tx, ty, tlen) for the rest of a step (rx, ry) that met a bank whose inward direction
+    is (gx, gy) (any length; zero = unknown): the step without its component into the bank, length
+    ``tlen`` along the unit tangent (tx, ty), nudged 0.01, 0.25 and 0.5 ``size`` into the water (the
+    larger nudges round the inner corners of a bank drawn by cells or faces)."""
+    norm = np.hypot(gx, gy)
+    has = norm > 0
+    nx_ = np.where(has, gx / np.where(has, norm, 1.0), 0.0)
+    ny_ = np.where(has, gy / np.where(has, norm, 1.0), 0.0)
+    into = np.minimum(rx * nx_ + ry * ny_, 0.0)  # component into the bank (negative)
+    ax_, ay_ = np.where(has, rx - into * nx_, 0.0), np.where(has, ry - into * ny_, 0.0)
+    tlen = np.hypot(ax_, ay_)
+    tx = np.where(tlen > 0, ax_ / np.where(tlen > 0, tlen, 1.0), 0.0)
+    ty = np.where(tlen > 0, ay_ / np.where(tlen > 0, tlen, 1.0), 0.0)
+    moves = []
+    for k in (0.01, 0.25, 0.5):
+        nudge = k * size
+        moves.append((np.where(has, ax_ + nudge * nx_, 0.0), np.where(has, ay_ + nudge * ny_, 0.0)))
+    return moves, tx, ty, tlen
+
+
 def _slide(flow, xw, yw, xd, yd, rx, ry):
     """(x, y, moved): each particle moved along the wet edge by the first of the flow's candidate
     moves (whole, half or quarter) that ends in the water; unmoved particles stay at (xw, yw).
-    ``moved`` is False also when the move gains less than 5 % of the step left in the step's own
-    direction (a current straight into the bank: nudges off the bank do not count)."""
+    ``moved`` is False also when the rest of the step has almost nothing along the bank (under 5 %:
+    a current straight into the bank) or the move gains under 5 % of it along the bank (nudges off
+    the bank do not count)."""
     nx_, ny_ = xw.copy(), yw.copy()
     done = np.zeros(xw.size, bool)
-    for mx, my in flow.bank_moves(xw, yw, xd, yd, rx, ry):
+    moves, tx, ty, tlen = flow.bank_moves(xw, yw, xd, yd, rx, ry)
+    for mx, my in moves:
         for f in (1.0, 0.5, 0.25):
             todo = np.flatnonzero(~done & ((mx != 0) | (my != 0)))
             if todo.size == 0:
@@ -781,9 +803,8 @@ def _slide(flow, xw, yw, xd, yd, rx, ry):
             idx = todo[ok]
             nx_[idx], ny_[idx] = px[ok], py[ok]
             done[idx] = True
-    rlen = np.hypot(rx, ry)
-    progress = ((nx_ - xw) * rx + (ny_ - yw) * ry) / np.where(rlen > 0, rlen, 1.0)
-    moved = done & (progress >= 0.05 * rlen)
+    progress = (nx_ - xw) * tx + (ny_ - yw) * ty
+    moved = done & (tlen >= 0.05 * np.hypot(rx, ry)) & (progress >= 0.05 * tlen)
     return nx_, ny_, moved
 
 
@@ -954,6 +975,9 @@ def track(flow, seed_x, seed_y, scheme, *, end_m: float, exact_chainage=None, zo
                 ch = np.asarray(exact_chainage(xw, yw), dtype=np.float64)
                 f = np.where(outside_hi, FATE_OUTSIDE, FATE_STRANDED)
                 f = np.where(ch < rel[still], FATE_UPSTREAM, f)
+                # leaving the model through its downstream boundary within half an element of the end
+                f = np.where(outside_hi & (ch >= end_m - 0.5 * flow.element_size(cur.where[still])),
+                             FATE_DOWNSTREAM, f)
                 contact = f == FATE_STRANDED  # met a bank (a dry element inside the model)
                 contacts[still[contact]] += 1
                 if slide and contact.any():

@@ -20,7 +20,9 @@ Variants
                1000 m + native:buffer with flat ends: the cross-sections), native:zonalstatisticsfb
                (count, mean, median, st.dev., min, max of speed per segment), native:intersection
                (class polygons x segments, for class areas). Outputs to GeoPackage/GeoTIFF files.
-               Numbering the segment polygons (native:fieldcalculator, @row_number) is included.
+               Numbering the segment polygons (native:fieldcalculator, @row_number) is included;
+               the segment layers are temporary (memory) layers (QGIS 3.22 keeps the one feature id of
+               the centreline for every piece, which a GeoPackage refuses), the rest are files.
                Turning the intersection into class areas per segment needs one more step
                (qgis:statisticsbycategories on $area); it is timed separately and NOT included.
   maphabitat   channelhabitat:maphabitat through Processing with every output written (CLASSES
@@ -91,7 +93,7 @@ def paths(reach: Path) -> dict:
 # Child processes: one measured variant each
 # ----------------------------------------------------------------------------------------------
 
-def _qgis():
+def _qgis(provider: bool = True):
     os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
     sys.path.insert(0, "/usr/share/qgis/python/plugins")
     from qgis.core import QgsApplication
@@ -101,10 +103,12 @@ def _qgis():
     from processing.core.Processing import Processing
 
     Processing.initialize()
-    from plugin.provider import ChannelHabitatProvider
+    prov = None
+    if provider:
+        from plugin.provider import ChannelHabitatProvider
 
-    prov = ChannelHabitatProvider()
-    QgsApplication.processingRegistry().addProvider(prov)
+        prov = ChannelHabitatProvider()
+        QgsApplication.processingRegistry().addProvider(prov)
     return app, prov
 
 
@@ -132,7 +136,7 @@ def child_floor(p: dict, work: Path) -> dict:
 
 
 def child_stock(p: dict, work: Path) -> dict:
-    app, prov = _qgis()
+    app, prov = _qgis(provider=False)
     import processing
     from qgis.core import QgsProcessingContext, QgsProcessingFeedback
 
@@ -159,18 +163,19 @@ def child_stock(p: dict, work: Path) -> dict:
         "OUTPUT": str(work / "stock_polygons.gpkg")})["OUTPUT"]
     # 3. segment polygons bounded by cross-sections: 1000 m pieces of the centreline, flat-ended buffers
     pieces = run("segment polygons: split centreline", "native:splitlinesbylength", {
-        "INPUT": p["centreline"], "LENGTH": 1000.0, "OUTPUT": str(work / "stock_pieces.gpkg")})["OUTPUT"]
+        "INPUT": p["centreline"], "LENGTH": 1000.0, "OUTPUT": "TEMPORARY_OUTPUT"})["OUTPUT"]
     segs = run("segment polygons: flat-ended buffers", "native:buffer", {
         "INPUT": pieces, "DISTANCE": 150.0, "SEGMENTS": 5, "END_CAP_STYLE": 1, "JOIN_STYLE": 0,
-        "MITER_LIMIT": 2, "DISSOLVE": False, "OUTPUT": str(work / "stock_buffers.gpkg")})["OUTPUT"]
+        "MITER_LIMIT": 2, "DISSOLVE": False, "OUTPUT": "TEMPORARY_OUTPUT"})["OUTPUT"]
     segs = run("segment polygons: number them", "native:fieldcalculator", {
         "INPUT": segs, "FIELD_NAME": "segment", "FIELD_TYPE": 1, "FIELD_LENGTH": 10, "FIELD_PRECISION": 0,
-        "FORMULA": "@row_number", "OUTPUT": str(work / "stock_segments.gpkg")})["OUTPUT"]
+        "FORMULA": "@row_number", "OUTPUT": "TEMPORARY_OUTPUT"})["OUTPUT"]
     # 4. zonal statistics of speed per segment (no percentiles besides the median)
     run("zonal statistics", "native:zonalstatisticsfb", {
         "INPUT": segs, "INPUT_RASTER": p["speed"], "RASTER_BAND": 1, "COLUMN_PREFIX": "v_",
-        "STATISTICS": [0, 2, 3, 4, 5, 6], "OUTPUT": str(work / "stock_zonal.gpkg")})
+        "STATISTICS": [0, 2, 3, 4, 5, 6], "OUTPUT": "TEMPORARY_OUTPUT"})
     # 5. class polygons x segments for class areas
+    n_segments = segs.featureCount()
     inter = run("intersection", "native:intersection", {
         "INPUT": polys, "OVERLAY": segs, "INPUT_FIELDS": ["class"], "OVERLAY_FIELDS": ["segment"],
         "OUTPUT": str(work / "stock_intersection.gpkg")})["OUTPUT"]
@@ -184,7 +189,8 @@ def child_stock(p: dict, work: Path) -> dict:
         "INPUT": area, "VALUES_FIELD_NAME": "area_m2", "CATEGORIES_FIELD_NAME": ["class", "segment"],
         "OUTPUT": str(work / "stock_class_areas.gpkg")}, context=ctx, feedback=fb)
     extra = time.perf_counter() - t
-    return {"seconds": total, "steps": steps, "extra_class_areas_s": extra, "rss_before_mb": before}
+    return {"seconds": total, "steps": steps, "extra_class_areas_s": extra, "rss_before_mb": before,
+            "segments": n_segments}
 
 
 def child_maphabitat(p: dict, work: Path) -> dict:
@@ -264,8 +270,13 @@ CHILDREN = {"floor": child_floor, "stock": child_stock, "maphabitat": child_maph
 def child_main(kind: str, reach: str) -> None:
     gdal_cfg = os.environ.get("GDAL_CACHEMAX")
     p = paths(Path(reach))
-    with tempfile.TemporaryDirectory(prefix=f"bench-{kind}-", dir=OUT) as tmp:
-        res = CHILDREN[kind](p, Path(tmp))
+    keep = os.environ.get("BENCH_KEEP")
+    if keep:
+        Path(keep).mkdir(parents=True, exist_ok=True)
+        res = CHILDREN[kind](p, Path(keep))
+    else:
+        with tempfile.TemporaryDirectory(prefix=f"bench-{kind}-", dir=OUT) as tmp:
+            res = CHILDREN[kind](p, Path(tmp))
     res["peak_rss_mb"] = peak_mb()
     res["gdal_cachemax"] = gdal_cfg
     print("RESULT " + json.dumps(res), flush=True)
@@ -326,7 +337,7 @@ def main() -> int:
               f"{best['stock'] / best[k]:12.2f}{pk:13.0f}{added:10.0f}")
     print()
     st = min(results["stock"], key=lambda r: r["seconds"])
-    print("stock chain steps (best run):")
+    print(f"stock chain steps (best run; {st['segments']} segment polygons):")
     for name, s in st["steps"].items():
         print(f"  {name:<45}{s:7.2f} s")
     print(f"  (not included: class areas from the intersection, field calculator + statistics by categories: "

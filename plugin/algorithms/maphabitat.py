@@ -118,8 +118,11 @@ by coverage union. The CRS must be projected, in metres.</p>
         # --- read ---------------------------------------------------------------------------------
         fld, src = runinput.read_run_parameters(self, parameters, context, feedback,
                                                 progress=self.progress(feedback, 0.0, 0.25))
+        habitat.check_metric_crs(fld.crs_wkt, src.params["mesh_crs"] if src.is_mesh else src.params["depth"])
+        line = self.parameterAsSource(parameters, reachinput.CENTRELINE, context)
+        crs_note = habitat.reprojection_note(reachinput.crs_wkt_of(line.sourceCrs()) if line else "", fld.crs_wkt)
         reach = reachinput.read_reach_parameters(self, parameters, context, feedback, target_crs_wkt=fld.crs_wkt)
-        reach, crs_note = habitat.reach_in_crs(reach, fld.crs_wkt)
+        reach, _ = habitat.reach_in_crs(reach, fld.crs_wkt)  # no-op when reachinput already transformed it
         if crs_note:
             feedback.pushWarning(crs_note)
         scheme = schemeinput.read_scheme_parameters(self, parameters, context, feedback)

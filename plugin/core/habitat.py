@@ -275,44 +275,54 @@ def crs_name(wkt: str) -> str:
         return "unreadable CRS"
 
 
+def crs_differ(a: str, b: str) -> bool:
+    """True when both CRS are known and differ (axis order ignored)."""
+    if not a or not b:
+        return False
+    return not _crs(a).equals(_crs(b), ignore_axis_order=True)
+
+
+def reprojection_note(line_crs_wkt: str, run_crs_wkt: str) -> str | None:
+    """The note for logs and reports when the centreline's layer is in another CRS than the run."""
+    if not crs_differ(line_crs_wkt, run_crs_wkt):
+        return None
+    return (f"The centreline is in {crs_name(line_crs_wkt)} and the run in {crs_name(run_crs_wkt)}: the "
+            "centreline (and any segment/zone polygons) was reprojected to the run's CRS; its chainages "
+            "were kept.")
+
+
 def reach_in_crs(reach: Reach, crs_wkt: str):
     """(reach, note): the reach in ``crs_wkt`` -- the same object when the CRS already match (or one
     is unknown), else a copy with the axis vertices and any segment/zone polygons reprojected (pyproj,
     x/y order). Vertex chainages are kept: they define the reach."""
     axis = reach.axis
-    if not crs_wkt or not axis.crs_wkt:
-        return reach, None
-    src, dst = _crs(axis.crs_wkt), _crs(crs_wkt)
-    if src.equals(dst, ignore_axis_order=True):
+    if not crs_differ(axis.crs_wkt, crs_wkt):
         return reach, None
     import copy
 
+    import shapely
     from pyproj import Transformer
 
-    tr = Transformer.from_crs(src, dst, always_xy=True)
-    x, y = tr.transform(axis.x, axis.y)
-    if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
-        raise ChannelHabitatError(f"the centreline cannot be reprojected from {src.name} to {dst.name}",
-                                  "CENTRELINE")
-    from .reach import ReachAxis
+    tr = Transformer.from_crs(_crs(axis.crs_wkt), _crs(crs_wkt), always_xy=True)
+    if hasattr(axis, "reprojected"):
+        new_axis = axis.reprojected(crs_wkt)
+    else:  # pragma: no cover - older axes
+        from .reach import ReachAxis
 
-    new_axis = ReachAxis(x, y, crs_wkt, datum_m=axis.datum_m, method=axis.method, chainage=axis.chainage)
+        x, y = tr.transform(axis.x, axis.y)
+        new_axis = ReachAxis(x, y, crs_wkt, datum_m=axis.datum_m, method=axis.method, chainage=axis.chainage)
     out = copy.copy(reach)
     out.axis = new_axis
 
     def move(geoms):
         if geoms is None:
             return None
-        import shapely
-
         return [None if g is None else shapely.transform(g, lambda xy: np.column_stack(
             tr.transform(xy[:, 0], xy[:, 1]))) for g in geoms]
 
     out.segment_polygons = move(getattr(reach, "segment_polygons", None))
     out.zone_polygons = move(getattr(reach, "zone_polygons", None))
-    note = (f"The centreline is in {crs_name(axis.crs_wkt)} and the run in {crs_name(crs_wkt)}: the centreline "
-            "(and any segment/zone polygons) was reprojected to the run's CRS; its chainages were kept.")
-    return out, note
+    return out, reprojection_note(axis.crs_wkt, crs_wkt)
 
 
 def reach_polygons(reach: Reach):

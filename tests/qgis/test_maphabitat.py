@@ -613,3 +613,47 @@ def test_demo_raster_and_mesh_of_the_weir_run_agree(demo_runs):
     names, faces = table(demo_runs["mesh"]["MESH_CLASSES"])
     assert len(faces) > 1000 and {"face", "class", "speed_ms", "area_m2"} <= set(names)
     assert sum(f["area_m2"] for f in faces if f["segment"] > 0) == pytest.approx(sum(z["wet_area_m2"] for z in mz))
+
+
+def test_segments_layer_and_reversed_centreline(run_alg, raster_run, tmp_path_factory):
+    """Given SEGMENTS polygons are the SEGMENT_STATS geometry; a centreline digitised downstream -> upstream
+    with CENTRELINE_DIRECTION 'reversed' gives the same statistics as the upstream-first one."""
+    from osgeo import ogr
+
+    folder, res, params = raster_run
+    t = tmp_path_factory.mktemp("segs")
+    path = t / "segments.gpkg"
+    ds = ogr.GetDriverByName("GPKG").CreateDataSource(str(path))
+    lyr = ds.CreateLayer("segments", hc.srs(), ogr.wkbPolygon)
+    for name in ("chainage_from_m", "chainage_to_m"):
+        lyr.CreateField(ogr.FieldDefn(name, ogr.OFTReal))
+    lyr.CreateField(ogr.FieldDefn("segment", ogr.OFTInteger))
+    rects = []
+    for i, a in enumerate(np.arange(0.0, hc.LENGTH, 300.0)):
+        b = min(a + 300.0, hc.LENGTH)
+        rect = shapely.box(hc.X0 + a, hc.Y0 - 5, hc.X0 + b, hc.Y0 + hc.WIDTH + 5)
+        rects.append(rect)
+        f = ogr.Feature(lyr.GetLayerDefn())
+        f.SetField("chainage_from_m", float(a))
+        f.SetField("chainage_to_m", float(b))
+        f.SetField("segment", i + 1)
+        f.SetGeometry(ogr.CreateGeometryFromWkb(rect.wkb))
+        lyr.CreateFeature(f)
+        del f
+    del lyr, ds
+    rev = hc.write_centreline(t / "rev.gpkg", reverse=True)
+    res2 = run_alg("maphabitat", {**params, "CENTRELINE": rev, "CENTRELINE_DIRECTION": 1,
+                                  "SEGMENTS": str(path) + "|layername=segments", "CLASSES": str(t / "c.tif"),
+                                  **outputs(t)})
+    _, rows, geoms = table(res2["SEGMENT_STATS"], geometry=True)
+    assert len(rows) == 4 and [r["chainage_from_m"] for r in rows] == [0, 300, 600, 900]
+    for g, rect in zip(geoms, rects):
+        assert g.equals(rect)
+    x, s, d, _, _ = cells(folder)
+    ch = x - hc.X0
+    for r in rows:
+        m = (ch >= r["chainage_from_m"]) & (ch < r["chainage_to_m"])
+        assert r["v_p50_ms"] == pytest.approx(np.percentile(s[m].astype(float), 50), abs=1e-6)
+    _, z1 = table(res["ZONE_STATS"])
+    _, z2 = table(res2["ZONE_STATS"])
+    assert [r["v_p50_ms"] for r in z1] == pytest.approx([r["v_p50_ms"] for r in z2], abs=1e-9)

@@ -17,7 +17,7 @@ ZONES = "0 upper, 12000 middle, 25000 lower"
 CURVES = Path(__file__).resolve().parents[2] / "sample_gis" / "suitability_demo.csv"
 
 
-def _axis(demo) -> str:
+def _axis(demo) -> dict:
     spec = importlib.util.spec_from_file_location("demo_step_40", Path(__file__).with_name("40_flowhabitat.py"))
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)
@@ -28,7 +28,7 @@ def run(demo):
     if not demo.scenarios.exists():
         demo.log(f"  skipped: {demo.scenarios} not there (run `make sample`)")
         return []
-    base = {"CENTRELINE": _axis(demo), "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": ZONES,
+    base = {**_axis(demo), "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": ZONES,
             "SUITABILITY_CURVES": str(CURVES), "CURVE_SET": "", "COMBINATION": 0}
     g = demo.sample / "rasters" / "weir"
     one = demo.run("usablearea", {

@@ -27,6 +27,7 @@ from ..core.field import MeshSupport
 from ..core.reach import locate_field
 from ..core.units import to_m3s, to_mld
 from ..gis import geotiff, outputs, reachinput, runinput, scenarioinput, scenariorun, suitabilitystyle
+from ..gis.flowreport import grid_rows
 from ..gis.patches import face_polygons
 from ..gis.wuareport import build_report
 from .base import ChannelHabitatAlgorithm
@@ -151,8 +152,7 @@ flowhabitat (two at a time, chainage once per grid or mesh).</p>
         units = scope_units(tab.reach)
         runs = [(r.regime, r.q_mld, r.q_m3s, r.label, w) for r, w in zip(tab.rows, tab.results)]
         table = usable.wua_table(units, runs, curve_set.label, method)
-        inputs = [("Scenario table", desc), ("Runs", tab.n),
-                  ("Grids and meshes", "; ".join(g.describe() for g in tab.grids))] + inputs
+        inputs = [("Scenario table", desc), ("Runs", tab.n)] + grid_rows(tab) + inputs
         report_path = self.parameterAsFileOutput(parameters, "REPORT", context)
         report = build_report(curve_set, method, sources, table, tab.reach, inputs, tab.notes,
                               scenario=True) if report_path else None

@@ -88,7 +88,7 @@ def log_q_axis(ax, qmin: float, qmax: float, top: bool = False, label: bool = Tr
             sec.spines[side].set_color(MUTED)
 
 
-def dense_q(q_runs, n: int = 160) -> np.ndarray:
+def dense_q(q_runs, n: int = 80) -> np.ndarray:
     q = np.asarray(q_runs, dtype=float)
     if q.size < 2:
         return q.copy()

@@ -55,6 +55,31 @@ def unit_rows(curves, scopes=("reach", "zone")) -> dict:
     return out
 
 
+def regime_rows(curves) -> list:
+    """Summary rows for the regimes: one row when every regime has the same ladder, else one each."""
+    ladders = {r: curves.ladder(r) for r in curves.regimes}
+    first = next(iter(ladders.values()))
+    if all(q.size == first.size and np.allclose(q, first, rtol=1e-9) for q in ladders.values()):
+        return [("Regimes", ", ".join(curves.regimes)),
+                ("Discharges", f"{first.size} per regime, {first[0]:,.0f}–{first[-1]:,.0f} ML/d")]
+    return [(f"Regime {r}", f"1 run, {q[0]:,.0f} ML/d" if q.size == 1 else
+             f"{q.size} runs, {q[0]:,.0f}–{q[-1]:,.0f} ML/d") for r, q in ladders.items()]
+
+
+def grid_rows(table) -> list:
+    """Summary rows for the grids/meshes and how long chainage took on each."""
+    rows = []
+    for k, g in enumerate(table.grids):
+        label = "Grid" if len(table.grids) == 1 else f"Grid {k + 1}"
+        rows.append((label, f"{g.text} ({g.runs} runs)"))
+        if g.locate_seconds:
+            text = f"computed once: {g.first_s:.2f} s for the first run"
+            if len(g.locate_seconds) > 1:
+                text += f", then {g.later_mean_s:.3f} s per run from the cache"
+            rows.append(("Chainage" if len(table.grids) == 1 else f"Chainage, grid {k + 1}", text))
+    return rows
+
+
 def _regime_summary(curves) -> str:
     parts = []
     for regime in curves.regimes:
@@ -70,22 +95,21 @@ def build_report(curves, results, table, scheme, wet_depth_m: float, table_desc:
     rep = Report(title, algorithm="flowhabitat", subtitle=_regime_summary(curves))
     ax = reach.axis
     t = table.timings
-    summary = [
-        ("Scenario table", table_desc),
-        ("Runs", f"{table.n} ({len(regimes)} regime(s))"),
-        ("Regimes", _regime_summary(curves)),
-        ("Grids and meshes", "; ".join(g.describe() for g in table.grids)),
+    summary = [("Scenario table", table_desc), ("Runs", f"{table.n} ({len(regimes)} regime(s))")]
+    summary += regime_rows(curves)
+    summary += grid_rows(table)
+    summary += [
         ("CRS", _crs_name(table.crs_wkt)),
-        ("Reach", f"chainage {ax.start_m:,.0f} to {ax.end_m:,.0f} m ({ax.length_m / 1000:.2f} km), chainage "
-                  f"{ax.method}"),
+        ("Reach", f"chainage {ax.start_m:,.0f} to {ax.end_m:,.0f} m ({ax.length_m / 1000:.2f} km), {ax.method}"),
         ("Segments", f"{reach.n_segments} (length {reach.segment_edges[1] - reach.segment_edges[0]:g} m)"),
         ("Zones", ", ".join(f"{n} {a:,.0f}–{b:,.0f} m" for n, a, b in
                             zip(reach.zone_names, reach.zone_edges[:-1], reach.zone_edges[1:]))),
         ("Class scheme", f"{scheme.name}: {', '.join(scheme.names)}"),
         ("Wet-depth threshold", wet_depth_m, "m"),
-        ("Interpolation between runs", cv.METHOD),
-        ("Time", f"{t['wall_s']:.1f} s for the runs ({t['workers']} at a time; reading {t['read_s']:.1f} s, "
-                 f"chainage {t['locate_s']:.1f} s, classes and areas {t['work_s']:.1f} s, summed over runs)"),
+        ("Interpolation between runs", "PCHIP on ln(discharge); not extrapolated (see Targets)"),
+        ("Time for the runs", f"{t['wall_s']:.1f} s, {t['workers']} at a time"),
+        ("Summed over the runs", f"reading {t['read_s']:.1f} s, chainage {t['locate_s']:.1f} s, classes and areas "
+                                 f"{t['work_s']:.1f} s"),
     ]
     rep.summary(summary, heading="Runs")
     rep.section("Classes", f"Scheme '{scheme.name}'. Bounds are lower-inclusive and upper-exclusive. Source: "

@@ -314,6 +314,10 @@ def run_scenarios(rows: list[ScenarioRow], work, *, wet_depth_m: float, reach=No
             return res
         except ChannelHabitatError as err:
             _reraise_for_row(row, err)
+        except Cancelled:
+            raise
+        except (RuntimeError, OSError) as exc:  # GDAL / netCDF4: a file that opens but cannot be read
+            raise ChannelHabitatError(f"{row.where}: cannot read the run's files: {exc}", parameter) from None
 
     def overall():
         return float(fractions.sum()) / n

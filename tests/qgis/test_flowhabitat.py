@@ -385,3 +385,22 @@ def test_cancel_leaves_no_outputs(demo, tmp_path):
                Cancelling())
     assert not (out / "report.html").exists()
     assert not (out / "targets.gpkg").exists()
+
+
+def test_a_regime_with_one_run(demo, tmp_path):
+    # one run of 'weir' and two of 'natural': the single run is a curve of one point; its targets are
+    # met at that run or not reached, never interpolated.
+    rows = _subset(demo["sample"], tmp_path, qs=("3000",)) + _subset(demo["sample"], tmp_path, regime="natural")
+    table = fc.write_table(tmp_path / "one.csv", rows)
+    res = fc.run("flowhabitat", _params(demo["axis"], tmp_path, SCENARIOS=table,
+                                        TARGET_STATEMENTS="lower: moderate+fast >= 50%\nupper: fast >= 10%"))
+    _, trows = fc.read_layer(res["TARGETS"])
+    by = {(t["regime"], t["target"]): t for t in trows}
+    w = by[("weir", "lower: moderate+fast >= 50%")]
+    assert w["status"] == "not reached within the runs" and w["q_lowest_mld"] == w["q_highest_mld"] == 3000
+    u = by[("weir", "upper: fast >= 10%")]
+    assert u["status"] == "met at the lowest run" and u["q_mld"] == 3000
+    with open(res["REPORT"], encoding="utf-8") as fh:
+        html = fh.read()  # written, with the charts of a one-point curve
+    assert "<th>Regime weir</th><td>1 run, 3,000 ML/d</td>" in html
+    assert "<th>Regime natural</th><td>2 runs, 3,000–4,000 ML/d</td>" in html

@@ -205,3 +205,16 @@ def test_speed_raster_alone_is_read_unless_vectors_are_needed(tmp_path):
                                     wet_depth_m=0.05, need_vectors=True)
     assert got.results[0][0] is False
     assert got.grids[0].locate_seconds == []  # no reach: no chainage
+
+
+def test_unreadable_tiles_name_the_row(tmp_path):
+    p, _ = _write_table(tmp_path, scales=(1.0, 1.2))
+    # the second run's speed raster cut short: its header opens, its tiles cannot be read
+    path = tmp_path / "run1" / "speed.tif"
+    data = path.read_bytes()
+    path.write_bytes(data[: len(data) // 3])
+    rows = read_scenarios(p)
+    with pytest.raises(ChannelHabitatError) as e:
+        scenariorun.run_scenarios(rows, _summary, wet_depth_m=0.05, reach=_reach())
+    assert str(e.value).startswith("row 3 (regime a, 2000 ML/d): ")
+    assert e.value.parameter == "SCENARIOS"

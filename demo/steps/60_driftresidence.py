@@ -5,8 +5,9 @@ drift to the downstream end in the weir and natural regimes at the lowest discha
 (3000 ML/d), from the scenario table's rasters. A second run drifts the weir regime's mesh at the same
 discharge. The log prints the median time in each class per regime.
 
-The demo centreline is digitised downstream to upstream on purpose; the drift uses a copy digitised
-upstream to downstream (chainage from the upstream end), which the velocity field requires.
+The reach is the buildreach AXIS of step 10 with its SEGMENTS and ZONES when that step has run;
+otherwise the demo centreline itself, which is digitised downstream to upstream on purpose
+(CENTRELINE_DIRECTION = reversed), with the same zone breaks.
 """
 
 from __future__ import annotations
@@ -15,26 +16,16 @@ TITLE = "Drift and residence time, weir pool against natural river at 3000 ML/d 
 CLASSES = ("very_slow", "slow", "moderate", "fast")
 
 
-def upstream_centreline(demo) -> str:
-    """A copy of the demo centreline digitised upstream -> downstream."""
-    from osgeo import ogr
-
-    ogr.UseExceptions()
-    src = ogr.Open(str(demo.sample / "centreline.gpkg"))
-    lyr = src.GetLayer(0)
-    feat = lyr.GetNextFeature()
-    pts = feat.GetGeometryRef().GetPoints()
-    out_path = demo.path("driftresidence", "centreline_upstream_first.gpkg")
-    ds = ogr.GetDriverByName("GPKG").CreateDataSource(out_path)
-    out = ds.CreateLayer("centreline", lyr.GetSpatialRef(), ogr.wkbLineString)
-    line = ogr.Geometry(ogr.wkbLineString)
-    for p in reversed(pts):
-        line.AddPoint_2D(p[0], p[1])
-    f = ogr.Feature(out.GetLayerDefn())
-    f.SetGeometry(line)
-    out.CreateFeature(f)
-    del f, out, ds, feat, lyr, src
-    return out_path + "|layername=centreline"
+def reach_parameters(demo) -> dict:
+    """buildreach's AXIS, SEGMENTS and ZONES from step 10, or the raw centreline (reversed)."""
+    folder = demo.out / "buildreach"
+    axis, segments, zones = (folder / f"{k}.gpkg" for k in ("axis", "segments", "zones"))
+    if axis.exists() and segments.exists() and zones.exists():
+        demo.log("  reach: buildreach AXIS, SEGMENTS and ZONES of step 10")
+        return {"CENTRELINE": str(axis), "SEGMENTS": str(segments), "ZONES": str(zones)}
+    demo.log("  reach: the demo centreline, reversed (digitised downstream -> upstream)")
+    return {"CENTRELINE": str(demo.sample / "centreline.gpkg") + "|layername=centreline",
+            "CENTRELINE_DIRECTION": 1, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "0 upper, 12000 middle, 25000 lower"}
 
 
 def _rows(path):
@@ -59,13 +50,12 @@ def run(demo):
     if not demo.scenarios.exists():
         demo.log("  skipped: the scenario table is missing (run `make sample`)")
         return []
-    cl = upstream_centreline(demo)
+    reach = reach_parameters(demo)
     items = []
     out = _outputs(demo, "weir_natural_3000")
     demo.run("driftresidence", {
         "SCENARIOS": str(demo.scenarios), "SCENARIO_REGIMES": "weir, natural", "SCENARIO_DISCHARGES": "3000",
-        "DISCHARGE_UNIT": 0, "CENTRELINE": cl, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "",
-        "N_PARTICLES": 200, "MAX_TIME_DAYS": 30.0, **out})
+        "DISCHARGE_UNIT": 0, **reach, "N_PARTICLES": 200, "MAX_TIME_DAYS": 30.0, **out})
     rows = [r for r in _rows(out["RESIDENCE_SUMMARY"]) if r["scope"] == "reach"]
     demo.log("  median time in each class, 200 particles, release to the downstream end (hours):")
     demo.log("    " + f"{'regime':10s}" + "".join(f"{c:>11s}" for c in CLASSES) + f"{'total':>11s}"
@@ -88,8 +78,7 @@ def run(demo):
     if mesh.exists():
         out = _outputs(demo, "weir_mesh_3000")
         demo.run("driftresidence", {
-            "MESH": str(mesh), "REGIME": "weir (mesh)", "DISCHARGE": 3000.0, "CENTRELINE": cl,
-            "N_PARTICLES": 200, **out})
+            "MESH": str(mesh), "REGIME": "weir (mesh)", "DISCHARGE": 3000.0, **reach, "N_PARTICLES": 200, **out})
         r = [r for r in _rows(out["RESIDENCE_SUMMARY"]) if r["scope"] == "reach"][0]
         demo.log(f"  weir mesh: median travel {r['t_total_p50_h']:.1f} h, slow {r['t_slow_p50_h']:.1f} h, "
                  f"{r['n_downstream']} of {r['n_particles']} particles reached the end")

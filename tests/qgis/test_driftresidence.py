@@ -335,29 +335,14 @@ def test_cancel_leaves_no_report(run_alg, tmp_path):
 # The demo reach (plausibility; common practice, no source)
 # ------------------------------------------------------------------------------------------------
 
-def _upstream_first(sample_dir, tmp_path):
-    src = ogr.Open(str(sample_dir / "centreline.gpkg"))
-    lyr = src.GetLayer(0)
-    feat = lyr.GetNextFeature()  # keep the feature alive while using its geometry
-    pts = np.array(feat.GetGeometryRef().GetPoints())[::-1]
-    ds = ogr.GetDriverByName("GPKG").CreateDataSource(str(tmp_path / "cl.gpkg"))
-    out = ds.CreateLayer("centreline", lyr.GetSpatialRef(), ogr.wkbLineString)
-    line = ogr.Geometry(ogr.wkbLineString)
-    for p in pts:
-        line.AddPoint_2D(float(p[0]), float(p[1]))
-    f = ogr.Feature(out.GetLayerDefn())
-    f.SetGeometry(line)
-    out.CreateFeature(f)
-    del f, out, ds
-    return f"{tmp_path / 'cl.gpkg'}|layername=centreline"
-
-
 @pytest.mark.slow
 def test_demo_weir_pool_holds_drift_in_slow_water_longer_than_the_natural_river(run_alg, sample_dir, tmp_path):
     out = outputs(tmp_path)
     run_alg("driftresidence", {"SCENARIOS": str(sample_dir / "scenarios.csv"), "SCENARIO_REGIMES": "weir, natural",
-                               "SCENARIO_DISCHARGES": "3000", "CENTRELINE": _upstream_first(sample_dir, tmp_path),
-                               "N_PARTICLES": 40, **out})
+                               "SCENARIO_DISCHARGES": "3000",
+                               "CENTRELINE": str(sample_dir / "centreline.gpkg") + "|layername=centreline",
+                               "CENTRELINE_DIRECTION": 1,  # the demo centreline is digitised downstream first
+                               "ZONE_BREAKS": "0 upper, 12000 middle, 25000 lower", "N_PARTICLES": 40, **out})
     _, srows = read_table(out["RESIDENCE_SUMMARY"])
     reach = {r["regime"]: r for r in srows if r["scope"] == "reach"}
     slow = {k: r["t_slow_p50_h"] + r["t_very_slow_p50_h"] for k, r in reach.items()}

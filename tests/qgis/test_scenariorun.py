@@ -218,3 +218,32 @@ def test_unreadable_tiles_name_the_row(tmp_path):
         scenariorun.run_scenarios(rows, _summary, wet_depth_m=0.05, reach=_reach())
     assert str(e.value).startswith("row 3 (regime a, 2000 ML/d): ")
     assert e.value.parameter == "SCENARIOS"
+
+
+def test_chainage_computed_once_per_grid(tmp_path, monkeypatch):
+    # Every cell is located once for the whole table: the runs after the first on a grid are served
+    # from core/reach's cache (only cells no earlier run had are located). Counted at the locator.
+    from plugin.core import reach as reach_mod
+
+    p, _ = _write_table(tmp_path)
+    rows = read_scenarios(p)
+    located = []
+    real = reach_mod.ReachAxis.locate
+
+    def counting(self, x, y, *args, **kw):
+        located.append(len(x))
+        return real(self, x, y, *args, **kw)
+
+    reach_mod.clear_locate_cache()
+    monkeypatch.setattr(reach_mod.ReachAxis, "locate", counting)
+    tab = scenariorun.run_scenarios(rows, _summary, wet_depth_m=0.05, reach=_reach(), workers=2)
+    union = set()
+    for row in rows:
+        ds = gdal.Open(row.source.depth)
+        d = ds.GetRasterBand(1).ReadAsArray()
+        del ds
+        union |= set(np.flatnonzero(np.isfinite(d) & (d != -9999) & (d >= 0.05)).tolist())
+    n_runs = [r[1] for r in tab.results]
+    assert sum(located) == len(union) < sum(n_runs)
+    assert located[0] == max(n_runs)  # the largest run first: the later ones find their cells located
+    reach_mod.clear_locate_cache()

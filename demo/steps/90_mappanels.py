@@ -1,19 +1,17 @@
 """Demo: map panels for the weir and natural regimes at the lowest discharge of the ladder.
 
 Panels come last: they draw what the other steps make. For each regime the velocity classes come
-from maphabitat (run here on the demo rasters, so the step stands on its own), the reach axis and
-km posts from buildreach (the demo centreline is digitised downstream to upstream on purpose;
-buildreach orients it). Each regime gets one page per reach zone (A4) and an atlas of 3 km pages
-along the river (A4, maps rotated to follow the channel, with the water beside the bank vegetation
-from vegetationoverlay's EDGES drawn over the stands); PDF and PNG pages.
+from maphabitat (run here on the demo rasters, so the step stands on its own); the reach axis, km
+posts and zones from the buildreach step (or buildreach run here: the demo centreline is digitised
+downstream to upstream on purpose, and buildreach orients it). Each regime gets one page per reach
+zone (A4) and an atlas of 3 km pages along the river (A4, maps rotated to follow the channel, with
+the water beside the bank vegetation from vegetationoverlay's EDGES drawn over the stands); PDF and
+PNG pages.
 """
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
-
-from osgeo import ogr
 
 TITLE = "Map panels: weir and natural regimes at 3000 ML/d (mappanels)"
 
@@ -22,42 +20,21 @@ DISCHARGE_MLD = 3000
 DATE = "2026-12-01"
 
 
-def _has(alg_id: str) -> bool:
-    from qgis.core import QgsApplication
-
-    return QgsApplication.processingRegistry().algorithmById(f"channelhabitat:{alg_id}") is not None
-
-
 def _reach(demo):
-    """(axis, posts or None, note): buildreach's AXIS and POSTS; without buildreach, the centreline
-    reversed to run upstream to downstream (posts are then placed by mappanels)."""
-    centreline = demo.sample / "centreline.gpkg"
-    if _has("buildreach"):
-        res = demo.run("buildreach", {
-            "CENTRELINE": str(centreline), "AXIS": demo.path("mappanels", "reach", "axis.gpkg"),
-            "POSTS": demo.path("mappanels", "reach", "posts.gpkg")})
-        return res["AXIS"], res["POSTS"], "reach axis and km posts from buildreach"
-    path = demo.path("mappanels", "reach", "axis_upstream_to_downstream.gpkg")
-    src = ogr.Open(str(centreline))
-    layer = src.GetLayer(0)
-    feat = layer.GetNextFeature()
-    geom = feat.GetGeometryRef()
-    pts = geom.GetPoints()[::-1]
-    if os.path.exists(path):
-        os.remove(path)
-    ds = ogr.GetDriverByName("GPKG").CreateDataSource(path)
-    out = ds.CreateLayer("axis", layer.GetSpatialRef(), ogr.wkbLineString)
-    line = ogr.Geometry(ogr.wkbLineString)
-    for p in pts:
-        line.AddPoint_2D(p[0], p[1])
-    f = ogr.Feature(out.GetLayerDefn())
-    f.SetGeometry(line)
-    out.CreateFeature(f)
-    f = None
-    ds = None
-    del feat, layer, src
-    return path, None, ("buildreach is not available: the demo centreline reversed (it is digitised downstream "
-                        "to upstream)")
+    """Reach parameters for mappanels: buildreach's AXIS, POSTS and ZONES from the buildreach demo
+    step (demo_output/buildreach), else buildreach run here (the demo centreline is digitised
+    downstream to upstream: DIRECTION = reversed)."""
+    folder = Path(demo.out) / "buildreach"
+    names = ("axis", "posts", "zones")
+    found = {n: folder / f"{n}.gpkg" for n in names}
+    if not all(p.exists() for p in found.values()):
+        found = {n: Path(demo.path("mappanels", "reach", f"{n}.gpkg")) for n in names}
+        demo.run("buildreach", {
+            "CENTRELINE": str(demo.sample / "centreline.gpkg"), "DIRECTION": 1,
+            "EXTENT": str(demo.sample / "channel.gpkg"), "ZONE_BREAKS": "0 upper, 12000 middle, 25000 lower",
+            "AXIS": str(found["axis"]), "POSTS": str(found["posts"]), "SEGMENTS": "TEMPORARY_OUTPUT",
+            "ZONES": str(found["zones"])})
+    return {"CENTRELINE": str(found["axis"]), "POSTS": str(found["posts"]), "ZONES": str(found["zones"])}
 
 
 def _folder(demo, *parts) -> str:
@@ -71,8 +48,7 @@ def run(demo):
     if not rasters.exists() or not (demo.sample / "centreline.gpkg").exists():
         demo.log("  skipped: the demo rasters or centreline are not there (run `make sample`)")
         return []
-    axis, posts, note = _reach(demo)
-    demo.log(f"  {note}")
+    reach = _reach(demo)
     items = []
     for regime in REGIMES:
         stem = f"{regime}_q{DISCHARGE_MLD:05d}"
@@ -80,7 +56,8 @@ def run(demo):
         depth = str(rasters / regime / f"q{DISCHARGE_MLD:05d}_depth.tif")
         speed = str(rasters / regime / f"q{DISCHARGE_MLD:05d}_speed.tif")
         demo.run("maphabitat", {
-            "DEPTH": depth, "SPEED": speed, "CENTRELINE": axis, "CLASSES": classes, "PATCHES": "TEMPORARY_OUTPUT",
+            "DEPTH": depth, "SPEED": speed, "CENTRELINE": reach["CENTRELINE"], "ZONES": reach["ZONES"],
+            "CLASSES": classes, "PATCHES": "TEMPORARY_OUTPUT",
             "SEGMENT_STATS": "TEMPORARY_OUTPUT", "ZONE_STATS": "TEMPORARY_OUTPUT", "REPORT": None})
         # the water beside the bank vegetation, drawn over the classes
         edges = demo.run("vegetationoverlay", {
@@ -88,11 +65,9 @@ def run(demo):
             "DISCHARGE": DISCHARGE_MLD, "VEGETATION_STATS": "TEMPORARY_OUTPUT", "COMMUNITY_SUMMARY": "TEMPORARY_OUTPUT",
             "EDGES": demo.path("mappanels", regime, f"{stem}_vegetation_edges.gpkg"), "REPORT": None})["EDGES"]
         common = {
-            "HABITAT": classes, "CENTRELINE": axis, "BANKS": str(demo.sample / "channel.gpkg"),
+            "HABITAT": classes, **reach, "BANKS": str(demo.sample / "channel.gpkg"),
             "VEGETATION": str(demo.sample / "vegetation.gpkg"), "REGIME": regime, "DISCHARGE": DISCHARGE_MLD,
             "DISCHARGE_UNIT": 0, "DATE": DATE, "PAPER": 0, "DPI": 150, "ADD_TO_PROJECT": False}
-        if posts:
-            common["POSTS"] = posts
         zones = demo.run("mappanels", {
             **common, "PAGES_MODE": 0, "PDF": demo.path("mappanels", regime, f"{stem}_zones.pdf"),
             "PNG_FOLDER": _folder(demo, "mappanels", regime, "zones"),

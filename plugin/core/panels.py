@@ -115,14 +115,15 @@ def _window_points(axis, c0: float, c1: float) -> np.ndarray:
 
 def channel_direction(axis, c0: float, c1: float) -> float:
     """Direction (radians CCW from east) of the channel over [c0, c1]: the principal axis of the
-    axis points, oriented downstream."""
+    axis points, oriented downstream (the way chainage increases, turned round for an axis whose
+    chainage origin is at the downstream end)."""
     pts = _window_points(axis, c0, c1)
     centred = pts - pts.mean(axis=0)
     if np.allclose(centred, 0):
         return 0.0
     _, _, vt = np.linalg.svd(centred, full_matrices=False)
     d = vt[0]
-    if np.dot(pts[-1] - pts[0], d) < 0:
+    if np.dot(pts[-1] - pts[0], d) * getattr(axis, "flow_sign", 1) < 0:
         d = -d
     return float(math.atan2(d[1], d[0]))
 
@@ -162,7 +163,7 @@ def fit_frame(axis, window: PageWindow, frame_mm, margin_m: float, rotate: bool 
     else:
         x0, _, _ = axis.point_at(window.chainage_from_m)
         x1, _, _ = axis.point_at(window.chainage_to_m)
-        ltr = bool(x1 >= x0)
+        ltr = bool((x1 - x0) * getattr(axis, "flow_sign", 1) >= 0)
     return Frame(cx, cy, angle, w, h, need, bool(ltr))
 
 

@@ -106,6 +106,18 @@ def test_westward_river_is_not_upside_down():
     assert frames[0].flow_left_to_right
 
 
+def test_downstream_origin_flow_direction():
+    # chainage from the downstream end: vertices run upstream, from x = 5000 to x = 0, so the water
+    # flows east (hand reasoning): unrotated, flow left to right
+    ax = ReachAxis([5000, 0], [0, 0], origin="downstream")
+    reach = Reach(ax, zone_edges=[0, ax.end_m], zone_names=["all"])
+    _, frames = plan_pages(reach, "zones", FRAME)
+    assert frames[0].rotation_deg == pytest.approx(0.0, abs=1e-9)
+    assert frames[0].flow_left_to_right
+    _, frames = plan_pages(reach, "zones", FRAME, rotate=False)
+    assert frames[0].flow_left_to_right
+
+
 def test_without_rotation_frames_are_north_up():
     reach, _, _ = meander_reach()
     _, frames = plan_pages(reach, "zones", FRAME, rotate=False)

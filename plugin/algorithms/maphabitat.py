@@ -129,21 +129,18 @@ by coverage union. The CRS must be projected, in metres.</p>
         min_area = self.parameterAsDouble(parameters, MIN_PATCH_AREA, context)
 
         # --- compute ------------------------------------------------------------------------------
-        progress = self.progress(feedback, 0.25, 0.5)
+        progress = self.progress(feedback, 0.25, 0.9)
         progress(0.0, "locating the run along the reach")
         location = locate_field(reach, fld)
-        analysis = habitat.analyse_run(fld, reach, scheme, location=location, progress=progress)
+        analysis = habitat.classify_run(fld, reach, scheme, location=location, progress=progress.sub(0.2, 0.3))
         is_mesh = isinstance(fld.support, MeshSupport)
         polys = patches.face_polygons(fld.support) if is_mesh else None
-        ptc = patches.habitat_patches(analysis, min_area, progress=self.progress(feedback, 0.5, 0.75),
-                                      polygons=polys)
         seg_geoms, zone_geoms = habitat.reach_polygons(reach)
-        if seg_geoms is None or zone_geoms is None:
-            self.progress(feedback, 0.75, 0.85)(0.0, "segment and zone footprints")
-            wet_seg, wet_zone = patches.wet_footprints(analysis, polygons=polys)
-            seg_geoms = seg_geoms if seg_geoms is not None else wet_seg
-            zone_geoms = zone_geoms if zone_geoms is not None else wet_zone
-        notes = list(fld.notes) + ([crs_note] if crs_note else []) + list(analysis.notes) + list(ptc.notes)
+        # patches (and wet footprints) are drawn in the background while statistics and report are made
+        job = patches.start_patch_job(analysis, min_area, polygons=polys, progress=progress,
+                                      footprints=seg_geoms is None or zone_geoms is None)
+        habitat.summarise_run(analysis, progress=progress.sub(0.3, 0.6))
+        notes = list(fld.notes) + ([crs_note] if crs_note else []) + list(analysis.notes)
         notes += habitat.geometry_notes(reach)
         run_label = fld.name or src.label
         seg_cols = {"run": [run_label] * reach.n_segments, **analysis.segment_stats}
@@ -151,9 +148,16 @@ by coverage union. The CRS must be projected, in metres.</p>
         report_path = self.parameterAsFileOutput(parameters, "REPORT", context)
         report = None
         if report_path:
-            self.progress(feedback, 0.85, 0.9)(0.0, "report")
-            report = build_report(analysis, habitat.run_summary(analysis, src, min_area), notes,
-                                  subtitle=run_label, patch_count=len(ptc))
+            progress(0.6, "report")
+            report = build_report(analysis, habitat.run_summary(analysis, src, min_area), notes, subtitle=run_label)
+        progress(0.8, "habitat patches")
+        ptc, footprints = job.result()
+        if footprints is not None:
+            seg_geoms = seg_geoms if seg_geoms is not None else footprints[0]
+            zone_geoms = zone_geoms if zone_geoms is not None else footprints[1]
+        if report is not None:
+            report.notes(ptc.notes)
+            report.note(f"PATCHES holds {len(ptc)} features: one multipolygon per class and segment.")
         for n in analysis.notes + ptc.notes:
             feedback.pushInfo(n)
 

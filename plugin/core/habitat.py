@@ -52,6 +52,7 @@ class RunAnalysis:
     outside_area_m2: float = 0.0
     unclassified_area_m2: float = 0.0
     notes: list = field(default_factory=list)
+    outside: np.ndarray | None = None  # bool: beyond the ends of the axis (in no segment or zone)
 
     @property
     def inside(self) -> np.ndarray:
@@ -144,7 +145,17 @@ def analyse_run(fld: HydraulicField, reach: Reach, scheme: ClassScheme, location
     ``reach.locate_field`` is called, which caches per grid/mesh geometry). ``profile_bin_m``: width
     of the chainage bins of the speed profile (default: a round width giving <= 200 bins; 0 = no
     profile). ``percentiles=False`` leaves out the percentile columns (faster; class areas only).
+    The same as :func:`classify_run` followed by :func:`summarise_run`.
     """
+    progress = as_progress(progress)
+    analysis = classify_run(fld, reach, scheme, location, progress.sub(0.0, 0.5), check_crs)
+    return summarise_run(analysis, progress.sub(0.5, 1.0), profile_bin_m, percentiles, threads)
+
+
+def classify_run(fld: HydraulicField, reach: Reach, scheme: ClassScheme, location=None, progress=None,
+                 check_crs: bool = True) -> RunAnalysis:
+    """Locate, classify and assign segments and zones (no statistics yet: the tables are empty until
+    :func:`summarise_run`). Lets patches be drawn while the statistics are computed."""
     progress = as_progress(progress)
     if check_crs:
         check_metric_crs(fld.crs_wkt)
@@ -168,7 +179,7 @@ def analyse_run(fld: HydraulicField, reach: Reach, scheme: ClassScheme, location
     if n_out:
         seg = np.where(outside, -1, seg).astype(np.int32)
         zone = np.where(outside, -1, zone).astype(np.int32)
-    progress(0.45, "classifying")
+    progress(0.8, "classifying")
     codes = scheme.classify(fld.depth, fld.speed)
     fr = fld.froude()
     notes = []
@@ -182,23 +193,36 @@ def analyse_run(fld: HydraulicField, reach: Reach, scheme: ClassScheme, location
     if unclassified_area > 0:
         notes.append(f"{int(unclassified.sum())} wet elements ({unclassified_area:,.0f} m2) match no class of "
                      f"the scheme '{scheme.name}'; class areas add up to less than the wet area.")
-    progress(0.5, "statistics per segment, zone and chainage bin")
+    progress(1.0)
+    return RunAnalysis(fld, reach, scheme, codes, chainage, np.asarray(loc.offset, dtype=np.float64), seg, zone,
+                       fr, {}, {}, {}, None, outside_area, unclassified_area, notes, outside)
+
+
+def summarise_run(analysis: RunAnalysis, progress=None, profile_bin_m: float | None = None,
+                  percentiles: bool = True, threads: int = 2) -> RunAnalysis:
+    """Fill the statistics tables (segments, zones, whole reach) and the chainage profile of a
+    classified run; returns the same object."""
+    progress = as_progress(progress)
+    fld, reach, scheme = analysis.field, analysis.reach, analysis.scheme
+    seg, zone = analysis.segment, analysis.zone
+    outside = analysis.outside if analysis.outside is not None else (analysis.zone < 0)
+    progress(0.0, "statistics per segment, zone and chainage bin")
     groupings = [(seg, reach.n_segments), (zone, reach.n_zones),
                  (np.where(outside, -1, 0).astype(np.int32), 1)]
     bins = None
     if percentiles and profile_bin_m != 0:
         bins = profile_bins(reach, fld.weight_unit_m2, profile_bin_m)
-        groupings.append((bin_of(bins, chainage, outside), len(bins) - 1))
-    tables = stats.summarise_groupings(fld.speed, fld.depth, fld.area, codes, groupings, scheme.names,
-                                       fld.weight_unit_m2, froude=fr, percentiles=percentiles, threads=threads)
+        groupings.append((bin_of(bins, analysis.chainage, outside), len(bins) - 1))
+    tables = stats.summarise_groupings(fld.speed, fld.depth, fld.area, analysis.codes, groupings, scheme.names,
+                                       fld.weight_unit_m2, froude=analysis.froude, percentiles=percentiles,
+                                       threads=threads)
     progress.check()
-    seg_stats = {**segment_table_keys(reach), **tables[0]}
-    zone_stats = {**zone_table_keys(reach), **tables[1]}
-    reach_stats = {**reach_table_keys(reach), **tables[2]}
-    prof = profile_table(bins, tables[3], scheme) if bins is not None else None
+    analysis.segment_stats = {**segment_table_keys(reach), **tables[0]}
+    analysis.zone_stats = {**zone_table_keys(reach), **tables[1]}
+    analysis.reach_stats = {**reach_table_keys(reach), **tables[2]}
+    analysis.profile = profile_table(bins, tables[3], scheme) if bins is not None else None
     progress(1.0)
-    return RunAnalysis(fld, reach, scheme, codes, chainage, np.asarray(loc.offset, dtype=np.float64), seg, zone,
-                       fr, seg_stats, zone_stats, reach_stats, prof, outside_area, unclassified_area, notes)
+    return analysis
 
 
 def profile_bins(reach: Reach, weight_unit_m2: float = 1.0, bin_m: float | None = None) -> np.ndarray:

@@ -59,9 +59,12 @@ def _assemble(analysis, rows, notes) -> Patches:
     reach = analysis.reach
     names = analysis.scheme.names
     rows = sorted(rows, key=lambda r: (r[0], r[1]))
-    seg_wet = np.asarray(analysis.segment_stats["wet_area_m2"], dtype=float)
+    inside = analysis.segment >= 0
+    seg_wet = np.bincount(analysis.segment[inside], weights=analysis.field.area[inside],
+                          minlength=reach.n_segments)
     e = reach.segment_edges
-    seg_zone = analysis.segment_stats["zone"]
+    mid = (e[:-1] + e[1:]) / 2.0
+    seg_zone = [reach.zone_names[k] if k >= 0 else "" for k in reach.zone_of(mid)]
     cols = {
         "class": [names[r[1] - 1] for r in rows],
         "class_code": np.array([r[1] for r in rows], dtype=np.int64),
@@ -348,6 +351,32 @@ def mesh_patches(analysis, min_area_m2: float = 0.0, progress=None, polygons=Non
         if i % 8 == 0:
             progress(0.3 + 0.7 * i / max(len(groups), 1), "merging faces into habitat patches")
     return _assemble(analysis, rows, notes)
+
+
+def start_patch_job(analysis, min_area_m2: float = 0.0, polygons=None, footprints: bool = True,
+                    threads: int = 2, progress=None):
+    """Patches (and the wet footprints of segments and zones when ``footprints``) of a classified run,
+    computed in a background thread -- GDAL polygonizing and GEOS unions release the GIL, so they run
+    while the statistics and the report are made. Returns a Future of (Patches, (segment geometries,
+    zone geometries) or None). ``progress`` is only asked whether to stop (no progress reports from the
+    background thread)."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from ..core.errors import Progress
+
+    stop = Progress(None, getattr(progress, "_cancelled", None)) if progress is not None else None
+
+    def job():
+        ptc = habitat_patches(analysis, min_area_m2, stop, threads, polygons)
+        if stop is not None:
+            stop.check()
+        fp = wet_footprints(analysis, threads, polygons) if footprints else None
+        return ptc, fp
+
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="patches")
+    future = pool.submit(job)
+    pool.shutdown(wait=False)
+    return future
 
 
 def habitat_patches(analysis, min_area_m2: float = 0.0, progress=None, threads: int = 2,

@@ -54,8 +54,9 @@ vector group (<b>MESH_VELOCITY_GROUP</b>, or <b>MESH_U_GROUP</b>/<b>MESH_V_GROUP
 <li>and/or <b>SCENARIOS</b>: a scenario table (CSV: regime, discharge, unit, depth, speed, u, v, or mesh and
 groups) to run every row, optionally narrowed with <b>SCENARIO_REGIMES</b> and <b>SCENARIO_DISCHARGES</b>
 (in DISCHARGE_UNIT). All runs must share one projected CRS in metres.</li>
-<li><b>CENTRELINE</b> (buildreach AXIS or any centreline), <b>SEGMENT_LENGTH</b> (m, for the 1D estimate),
-<b>ZONE_BREAKS</b>: the reach.</li>
+<li><b>CENTRELINE</b> (buildreach AXIS or any centreline; its chainage must run with the flow, see
+<b>CENTRELINE_DIRECTION</b>), <b>SEGMENT_LENGTH</b> (m, for the 1D estimate), <b>ZONE_BREAKS</b> (or buildreach
+<b>SEGMENTS</b>/<b>ZONES</b>): the reach.</li>
 <li><b>SCHEME</b>, <b>CLASS_TABLE</b>, <b>CLASS_FILE</b>: the classes (default very slow / slow / moderate /
 fast).</li>
 <li><b>N_PARTICLES</b> (default 200): released across the wet width of the cross-section at
@@ -95,15 +96,18 @@ t_cumulative_h, t_cumulative_d</i>.</li>
 scenario table), zone tables, the estimate and a map of the paths.</li>
 </ul>
 <h3>Method</h3>
-<p>Classical 4th-order Runge-Kutta, one step per particle per iteration, dt = clip(COURANT h / |V|,
-MIN_STEP_S, MAX_STEP_S) with h the cell size or the square root of the face area and |V| the speed at the
+<p>Classical 4th-order Runge-Kutta, one step per particle per iteration, dt = COURANT &times; h / |V| kept between
+MIN_STEP_S and MAX_STEP_S, with h the cell size or the square root of the face area and |V| the speed at the
 step start (a step that would move further than 2 COURANT h is redone shorter). Rasters: bilinear
 interpolation over wet cells only; meshes: face-constant values (as stored), faces found by walking from the
-particle's last face. The end crossing is placed on the step's cubic Hermite path. Time in classes: the class
-of the water at the four Runge-Kutta stage points, Simpson weights 1/6, 1/3, 1/3, 1/6 - class times add up to
-the travel time. Percentiles: numpy's linear percentiles over the particles of a run. 1D estimate: segment
-length over the area-weighted mean speed of the wet elements with |offset| &le; BAND_FRACTION &times; W / 2,
-W = the segment's wet area / length.</p>
+particle's last face. The end crossing is placed on the step's cubic Hermite path. Banks (<i>slide</i>): the
+rest of a step that meets the wet edge loses its component into the bank (bank direction from the raster's
+wet cells or the mesh face's dry sides) and the particle drifts on; a current straight into the bank strands
+it. Time in classes: the class of the water at the four Runge-Kutta stage points, Simpson weights 1/6, 1/3,
+1/3, 1/6 - class times add up to the travel time. Percentiles: numpy's linear percentiles over the particles
+of a run. 1D estimate: segment length over the area-weighted mean speed of the wet elements with |offset|
+&le; BAND_FRACTION &times; W / 2, W = the segment's wet area / length. Details and sources:
+docs/algorithms/driftresidence.md.</p>
 """
 
     def define(self, config):

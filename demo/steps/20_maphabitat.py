@@ -5,9 +5,9 @@ highest discharge of the ladder, from the rasters; then the weir regime's mesh a
 its rasters, to show how close two supports of the same run come (a plausibility check only: invented data
 is never a reference).
 
-The demo centreline is digitised downstream to upstream on purpose; maphabitat computes chainage from the
-first vertex, so the step gives it a copy digitised upstream to downstream (the 'lower' zone is next to the
-weir).
+The demo centreline is digitised downstream to upstream on purpose; the step says so with
+CENTRELINE_DIRECTION = reversed, so chainage runs from the upstream end and the 'lower' zone is next to the
+weir.
 """
 
 from __future__ import annotations
@@ -16,30 +16,6 @@ import csv
 
 TITLE = "Habitat maps and segment statistics of single runs (maphabitat)"
 REGIMES = ("weir", "weir_raised", "weir_lowered", "natural")
-
-
-def upstream_centreline(demo) -> str:
-    """A copy of the demo centreline digitised upstream -> downstream."""
-    from osgeo import ogr
-
-    ogr.UseExceptions()
-    src = ogr.Open(str(demo.sample / "centreline.gpkg"))
-    lyr = src.GetLayer(0)
-    feat = lyr.GetNextFeature()
-    geom = feat.GetGeometryRef().Clone()
-    pts = geom.GetPoints()
-    out_path = demo.path("maphabitat", "centreline_upstream_first.gpkg")
-    drv = ogr.GetDriverByName("GPKG")
-    ds = drv.CreateDataSource(out_path)
-    out = ds.CreateLayer("centreline", lyr.GetSpatialRef(), ogr.wkbLineString)
-    line = ogr.Geometry(ogr.wkbLineString)
-    for p in reversed(pts):
-        line.AddPoint_2D(p[0], p[1])
-    f = ogr.Feature(out.GetLayerDefn())
-    f.SetGeometry(line)
-    out.CreateFeature(f)
-    del f, out, ds, geom, feat, lyr, src
-    return out_path + "|layername=centreline"
 
 
 def _rows(path):
@@ -83,7 +59,7 @@ def run(demo):
     rows = _rows(table)
     qs = sorted({float(r["discharge"]) for r in rows})
     low, high = qs[0], qs[-1]
-    cl = upstream_centreline(demo)
+    cl = str(demo.sample / "centreline.gpkg") + "|layername=centreline"
     items = []
     for regime in REGIMES:
         for q in (low, high):
@@ -95,7 +71,7 @@ def run(demo):
             out = _outputs(demo, name)
             res = demo.run("maphabitat", {
                 "DEPTH": str(demo.sample / row["depth"]), "SPEED": str(demo.sample / row["speed"]),
-                "CENTRELINE": cl, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "", **out})
+                "CENTRELINE": cl, "CENTRELINE_DIRECTION": 1, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "", **out})
             demo.log(f"  {regime} {q:g} ML/d: wet area {res['WET_AREA_M2'] / 1e6:.2f} km2; "
                      f"{_zone_summary(res['ZONE_STATS'])}")
             items.append((f"{regime}, {q:g} ML/d: report", res["REPORT"]))
@@ -118,7 +94,7 @@ def run(demo):
             res = demo.run("maphabitat", {
                 "MESH": layer, "MESH_DEPTH_GROUP": mrow.get("depth_group") or "",
                 "MESH_VELOCITY_GROUP": mrow.get("velocity_group") or "", "CENTRELINE": cl,
-                "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "", **out})
+                "CENTRELINE_DIRECTION": 1, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "", **out})
             demo.log(f"  weir mesh {q:g} ML/d: wet area {res['WET_AREA_M2'] / 1e6:.2f} km2; "
                      f"{_zone_summary(res['ZONE_STATS'])}")
             items.append((f"weir mesh, {q:g} ML/d: report", res["REPORT"]))

@@ -45,9 +45,10 @@ and <b>MESH_CRS</b> for a mesh that carries no CRS. Face values are used as stor
 to faces.</li>
 <li><b>WET_DEPTH</b> (m, default 0.05): shallower elements are dry. NaN and nodata are dry.</li>
 <li><b>CENTRELINE</b>: the reach axis from <i>buildreach</i> (chainage from its M values) or any centreline
-(axis built on the fly, chainage from the upstream end); reprojected to the run's CRS when they differ.
-<b>SEGMENT_LENGTH</b> (m, default 1000) and <b>ZONE_BREAKS</b> (e.g. <code>0 upper, 12000 middle,
-25000 lower</code>; empty: equal thirds).</li>
+(axis built on the fly, chainage from the upstream end; <b>CENTRELINE_DIRECTION</b> says whether the first
+vertex is the upstream end); reprojected to the run's CRS when they differ. <b>SEGMENT_LENGTH</b> (m, default
+1000) and <b>ZONE_BREAKS</b> (e.g. <code>0 upper, 12000 middle, 25000 lower</code>; empty: equal thirds), or
+buildreach's <b>SEGMENTS</b> and <b>ZONES</b> polygons (advanced).</li>
 <li><b>SCHEME</b>: the velocity classes (very slow &lt; 0.05 &le; slow &lt; 0.20 &le; moderate &lt; 0.30 &le;
 fast, m/s; DESIGN section 4 sources), the Froude mesohabitat classes after Jowett 1993 (pool: Fr &lt; 0.18 and
 V/D &lt; 1.24 s<sup>-1</sup>; riffle: Fr &gt; 0.41 and V/D &gt; 3.20 s<sup>-1</sup>; run otherwise), or a custom

@@ -201,8 +201,9 @@ def design_layout(project, paper: str = "A4") -> QgsPrintLayout:
     layout.itemById("subtitle").setText('[% "label" %] · [% "km_text" %] · [% "flow" %]')
     layout.itemById("page_number").setText("Page [% @atlas_featurenumber %] of [% @atlas_totalfeatures %]")
     layout.itemById("scale_text").setText(
-        f"Scale 1:[% format_number(\"scale\", 0) %] on {paper} paper\nMap rotated to follow the channel; "
-        "north as shown")
+        f"Scale 1:[% format_number(\"scale\", 0) %] on {paper} paper\n"
+        "[% if(abs(\"rotation_deg\") < 0.5, 'North up', 'Map turned ' || format_number(abs(\"rotation_deg\"), 0) "
+        "|| '° to follow the channel') %]")
 
     leg = QgsLayoutItemLegend(layout)
     layout.addLayoutItem(leg)

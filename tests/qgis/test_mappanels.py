@@ -160,6 +160,9 @@ def test_atlas_pages_along_the_river(run_alg, data, tmp_path):
     rotations = [f["rotation_deg"] for f in lyr.getFeatures()]
     assert len({round(r) for r in rotations}) > 1  # the map turns with the channel
     assert f"Page {expected} of {expected}" in pdf_text(res["PDF"], expected)
+    turned = [f for f in lyr.getFeatures() if abs(f["rotation_deg"]) >= 0.5][0]
+    page_text = pdf_text(res["PDF"], turned["page"])
+    assert f"Map turned {abs(turned['rotation_deg']):.0f}° to follow the channel" in page_text
     assert not res["PNG_FILES"]
 
 
@@ -175,8 +178,10 @@ def test_class_polygons_take_scheme_colours(run_alg, data, tmp_path):
 
 def test_change_raster_diverging_legend(run_alg, data, tmp_path):
     res = run_alg("mappanels", base_params(data, tmp_path, HABITAT=data["change"], TITLE="Speed change, raised "
-                                           "minus normal pool", PNG_FOLDER=None, DISCHARGE=40, DISCHARGE_UNIT=1))
+                                           "minus normal pool", PNG_FOLDER=None, DISCHARGE=40, DISCHARGE_UNIT=1,
+                                           ROTATE=False))
     text = pdf_text(res["PDF"])
+    assert text.count("North up") == 3 and "Map turned" not in text  # ROTATE off: north-up pages
     assert "Speed change, raised minus normal pool" in text
     assert "(slower)" in text and "(faster)" in text
     assert "3 456 ML/d (40 m³/s)" in text  # 40 * 86400 / 1000 = 3456

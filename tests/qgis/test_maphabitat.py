@@ -657,3 +657,17 @@ def test_segments_layer_and_reversed_centreline(run_alg, raster_run, tmp_path_fa
     _, z1 = table(res["ZONE_STATS"])
     _, z2 = table(res2["ZONE_STATS"])
     assert [r["v_p50_ms"] for r in z1] == pytest.approx([r["v_p50_ms"] for r in z2], abs=1e-9)
+
+
+def test_speed_raster_in_another_crs_is_reprojected_and_said(run_alg, raster_run, tmp_path_factory):
+    folder, res, params = raster_run
+    t = tmp_path_factory.mktemp("speedcrs")
+    warped = str(t / "speed_28355.tif")
+    gdal.Warp(warped, str(folder / "speed.tif"), dstSRS="EPSG:28355", resampleAlg="near", xRes=2.0, yRes=2.0)
+    res2 = run_alg("maphabitat", {**params, "SPEED": warped, "CLASSES": str(t / "c.tif"), **outputs(t)})
+    page = Path(res2["REPORT"]).read_text(encoding="utf-8")
+    assert "reprojected from its CRS to the grid of DEPTH" in page
+    _, a = table(res["ZONE_STATS"])
+    _, b = table(res2["ZONE_STATS"])
+    for ra, rb in zip(a, b):
+        assert rb["v_p50_ms"] == pytest.approx(ra["v_p50_ms"], abs=0.02)

@@ -239,3 +239,19 @@ def test_demo_wetted_share_follows_pool_level(run_alg, sample_dir, tmp_path):
     by = {(f["community"], f["regime"]): f["wet_pct"] for f in summ}
     for comm in {c for c, _ in by}:
         assert by[(comm, "weir_lowered")] <= by[(comm, "weir")] <= by[(comm, "weir_raised")], comm
+
+
+@pytest.mark.slow
+def test_demo_mesh_runs(run_alg, sample_dir, tmp_path):
+    # UGRID mesh rows through the shared runner: every stand gets a row per run, and each stand's
+    # wetted area is at most its area (plausibility on invented data)
+    res = run_alg("vegetationoverlay", {
+        "VEGETATION": str(sample_dir / "vegetation.gpkg"), "SCENARIOS": str(sample_dir / "scenarios_mesh.csv"),
+        "SCENARIO_DISCHARGES": "3000, 40000", "EDGES": None, "REPORT": None,
+        "VEGETATION_STATS": str(tmp_path / "stats.gpkg"), "COMMUNITY_SUMMARY": str(tmp_path / "summary.gpkg")})
+    lyr, feats = _features(res["VEGETATION_STATS"])
+    n_stands = QgsVectorLayer(str(sample_dir / "vegetation.gpkg"), "v", "ogr").featureCount()
+    assert len(feats) == 2 * n_stands
+    assert all(f["wet_area_m2"] <= f["area_m2"] * (1 + 1e-9) for f in feats)
+    wet = {q: sum(f["wet_area_m2"] for f in feats if f["q_mld"] == q) for q in (3000, 40000)}
+    assert 0 < wet[3000] < wet[40000]  # more water, more of the banks wetted

@@ -158,7 +158,7 @@ def build_report(curves, results, table, scheme, wet_depth_m: float, table_desc:
                     f"Share of {'+'.join(set_classes)} in the wet area of every segment (rows, upstream at the top) "
                     "at every run (columns), per regime. Grey: the segment is dry in that run. "
                     + ("The classes are those of the first target." if targets else "The last class of the scheme."))
-        rep.figure(fig, caption=f"{'+'.join(set_classes)} per segment and run.")
+        rep.figure(fig, caption=f"{'+'.join(set_classes)} per segment and run.", fmt="png")
     rep.section("Tables", "The whole reach and the zones at every run; the CURVES output holds every segment too.")
     rep.table(unit_rows(curves), caption="Class shares of the reach and zones at every run", csv_name="zone_curves")
     rep.table(runs, caption="Runs", csv_name="runs")

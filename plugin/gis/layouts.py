@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import math
 import os
+import re
 import shutil
 import tempfile
 from dataclasses import dataclass, field
@@ -291,21 +292,29 @@ def class_label(name: str, rule: str = "") -> str:
 
 
 def raster_classes(path: str, fallback_names=()) -> list:
-    """[(code, '#RRGGBB', name)] of a class raster: colours from its colour table, names from its
-    category names, or, when it has none, ``fallback_names`` for codes 1..N (the scheme's classes).
-    Code 0 (dry) and the nodata value are left out; [] when the raster has no colour table."""
+    """[(code, '#RRGGBB', name)] of a class raster: colours from its colour table; names from its
+    category names, else from the ``classes`` metadata item maphabitat writes ('1 very slow: ...;
+    2 slow: ...'), else ``fallback_names`` for codes 1..N (the scheme's classes). Code 0 (dry) and the
+    nodata value are left out; [] when the raster has no colour table."""
     ds = gdal.Open(str(path))
     band = ds.GetRasterBand(1)
     ct = band.GetRasterColorTable()
     names = list(band.GetRasterCategoryNames() or [])
+    meta = ds.GetMetadataItem("classes") or ""
     nd = band.GetNoDataValue()
     out = []
     if ct is not None:
         if any(names[1:]):
             codes = [c for c in range(1, min(len(names), ct.GetCount())) if names[c]]
         else:
-            codes = list(range(1, min(len(fallback_names) + 1, ct.GetCount())))
-            names = [""] + list(fallback_names)
+            named = {int(m.group(1)): m.group(2).strip()
+                     for m in re.finditer(r"(?:^|;)\s*(\d+)\s+([^:;]+):", meta)}
+            if named:
+                codes = sorted(c for c in named if 0 < c < ct.GetCount())
+                names = [named.get(i, "") for i in range(max(codes) + 1)] if codes else []
+            else:
+                codes = list(range(1, min(len(fallback_names) + 1, ct.GetCount())))
+                names = [""] + list(fallback_names)
         for code in codes:
             if nd is not None and code == nd:
                 continue

@@ -349,3 +349,33 @@ def test_long_legend_is_fitted_into_its_box(qgis_app):
     project2 = QgsProject()
     _, leg2, keep2 = _legend_with(project2, 40, "class number {} with a rather long label")
     assert layouts.fit_legend(leg2)[2] is False
+
+
+def test_class_names_of_a_class_raster(tmp_path):
+    # names from category names, else from maphabitat's 'classes' metadata, else the scheme's
+    from osgeo import gdal
+
+    from plugin.gis.layouts import raster_classes
+
+    def tif(name, names=None, meta=None):
+        ds = gdal.GetDriverByName("GTiff").Create(str(tmp_path / name), 4, 4, 1, gdal.GDT_Byte)
+        ds.SetGeoTransform((0, 1, 0, 4, 0, -1))
+        ct = gdal.ColorTable()
+        ct.SetColorEntry(1, (255, 0, 0, 255))
+        ct.SetColorEntry(2, (0, 0, 255, 255))
+        band = ds.GetRasterBand(1)
+        band.SetRasterColorTable(ct)
+        band.SetNoDataValue(0)
+        if names:
+            band.SetRasterCategoryNames(names)
+        if meta:
+            ds.SetMetadataItem("classes", meta)
+        band = None
+        ds = None
+        return str(tmp_path / name)
+
+    assert raster_classes(tif("a.tif", names=["dry", "pool", "riffle"]), ["x", "y"]) == [
+        (1, "#FF0000", "pool"), (2, "#0000FF", "riffle")]
+    assert raster_classes(tif("b.tif", meta="1 pool: Fr < 0.18; 2 riffle: Fr >= 0.41"), ["x", "y"]) == [
+        (1, "#FF0000", "pool"), (2, "#0000FF", "riffle")]
+    assert raster_classes(tif("c.tif"), ["x", "y"]) == [(1, "#FF0000", "x"), (2, "#0000FF", "y")]

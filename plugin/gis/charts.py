@@ -8,6 +8,7 @@ General helpers (for every algorithm's report):
     new_figure(width_in, height_in) -> (fig, ax)     a figure in the house style
     style_axes(ax, xlabel, ylabel, title)            axis labels, grid, spines
     mark_zones(ax, edges_m, names)                   zone boundaries and names along a km axis
+    chainage_label(origin)                           'chainage (km from the upstream end) -> downstream'
     text_colour_for(hex)                             black or white text for a filled background
     to_svg(fig) / to_png(fig)                        render and close the figure
 Habitat charts:
@@ -90,6 +91,14 @@ def text_colour_for(colour: str) -> str:
     return "#000000" if (lum + 0.05) / 0.05 >= 1.05 / (lum + 0.05) else "#ffffff"
 
 
+def chainage_label(origin: str = "upstream", km: bool = True) -> str:
+    """Axis label for chainage: where it is measured from and which way the river flows along it
+    (``origin`` = ReachAxis.origin: 'upstream' or 'downstream')."""
+    unit = "km" if km else "m"
+    towards = "downstream" if origin != "downstream" else "upstream"
+    return f"chainage ({unit} from the {origin} end)  →  {towards}"
+
+
 def mark_zones(ax, edges_m, names, km: bool = True):
     """Dotted vertical lines at inner zone boundaries and zone names at the top of ``ax``."""
     if edges_m is None or len(edges_m) < 2:
@@ -158,7 +167,7 @@ def _speed_intervals(scheme):
 
 
 def speed_profile(profile, scheme, zone_edges=None, zone_names=None, title: str = "",
-                  width_in: float = 9.5, height_in: float = 3.8):
+                  width_in: float = 9.5, height_in: float = 3.8, origin: str = "upstream"):
     """Percentile bands of speed along the reach.
 
     ``profile``: dict with ``chainage_from_m``, ``chainage_to_m`` and ``v_p10_ms``, ``v_p25_ms``,
@@ -209,8 +218,7 @@ def speed_profile(profile, scheme, zone_edges=None, zone_names=None, title: str 
     if finite.any():
         ax.set_xlim(float(a[finite].min()), float(b[finite].max()))
     mark_zones(ax, zone_edges, zone_names or [])
-    style_axes(ax, "chainage (km from the upstream end)  →  downstream", "depth-averaged speed (m/s)",
-               None)
+    style_axes(ax, chainage_label(origin), "depth-averaged speed (m/s)", None)
     if title:
         fig.suptitle(title, x=0.01, y=0.99, ha="left", va="top", fontsize=10)
     ax.legend(loc="lower left", frameon=False, ncol=3, bbox_to_anchor=(0.6 / width_in, 0.0),
@@ -254,7 +262,7 @@ def class_share_bars(units, fractions, scheme, title: str = "", width_in: float 
 
 
 def class_share_profile(edges_m, fractions, scheme, zone_edges=None, zone_names=None, title: str = "",
-                        width_in: float = 9.5, height_in: float = 3.2):
+                        width_in: float = 9.5, height_in: float = 3.2, origin: str = "upstream"):
     """Class shares per segment along the reach: stacked steps, one colour per class, 0-100 %."""
     edges = np.asarray(edges_m, dtype=float) / 1000.0
     fr = np.nan_to_num(np.asarray(fractions, dtype=float)) * 100.0
@@ -268,7 +276,7 @@ def class_share_profile(edges_m, fractions, scheme, zone_edges=None, zone_names=
     ax.set_ylim(0, 100)
     ax.set_xlim(edges[0], edges[-1])
     mark_zones(ax, zone_edges, zone_names or [])
-    style_axes(ax, "chainage (km from the upstream end)  →  downstream", "share of wet area (%)", None)
+    style_axes(ax, chainage_label(origin), "share of wet area (%)", None)
     ax.legend(loc="lower left", bbox_to_anchor=(0.6 / width_in, 0.0), bbox_transform=fig.transFigure,
               ncol=min(len(scheme.classes), 6), frameon=False, fontsize=8)
     if title:

@@ -52,6 +52,7 @@ def build_report(analysis, inputs, notes=(), title: str = "Habitat map of one ru
     scheme = analysis.scheme
     reach = analysis.reach
     rep = Report(title, algorithm="maphabitat", subtitle=subtitle)
+    origin = getattr(reach.axis, "origin", "upstream")
     rep.summary(inputs, heading="Run")
     r = analysis.reach_stats
     wet = float(r["wet_area_m2"][0])
@@ -76,11 +77,11 @@ def build_report(analysis, inputs, notes=(), title: str = "Habitat map of one ru
                                        "dark band holds the middle half of the wet area, the light band 80 %; "
                                        "dashed lines are the class thresholds.")
         rep.figure(charts.speed_profile(p, scheme, reach.zone_edges, reach.zone_names,
-                                        title="Depth-averaged speed along the reach"),
-                   caption="Speed percentile bands along chainage (km from the upstream end), zones marked.")
+                                        title="Depth-averaged speed along the reach", origin=origin),
+                   caption=f"Speed percentile bands along chainage (km from the {origin} end), zones marked.")
     sf = analysis.class_fractions("segment")
     rep.figure(charts.class_share_profile(reach.segment_edges, sf, scheme, reach.zone_edges, reach.zone_names,
-                                          title="Class shares per segment"),
+                                          title="Class shares per segment", origin=origin),
                caption="Share of each class in the wet area of every segment along the reach.")
     seg = analysis.segment_stats
     shown = ["segment", "chainage_from_m", "chainage_to_m", "zone", "wet_area_m2", "v_p10_ms", "v_p50_ms",

@@ -160,7 +160,7 @@ bends, where points far from the centreline can have an ambiguous chainage.</p>
             zone_breaks=self.parameterAsString(parameters, "ZONE_BREAKS", context),
             extent=extent, extent_crs_wkt=fld.crs_wkt if (extent_src is None and fld is not None) else crs_wkt,
             buffer_half_width_m=self.parameterAsDouble(parameters, "BUFFER_HALF_WIDTH", context),
-            progress=self.progress(feedback, 0.4, 0.9))
+            run_field=fld, progress=self.progress(feedback, 0.4, 0.9))
         if extent_note:
             built.notes.insert(0, extent_note)
         for n in built.notes:

@@ -71,9 +71,12 @@ def _multi(geom):
 def build_outputs(parts, crs_wkt: str, join_tolerance_m: float = 1.0, direction: str = "as digitised",
                   velocity=None, origin: str = "upstream", datum_m: float = 0.0,
                   segment_length_m: float = 1000.0, zone_breaks: str = "", extent=None,
-                  extent_crs_wkt: str = "", buffer_half_width_m: float = 100.0, progress=None) -> BuiltReach:
+                  extent_crs_wkt: str = "", buffer_half_width_m: float = 100.0, run_field=None,
+                  progress=None) -> BuiltReach:
     """Axis, posts, segments and zones from the centreline ``parts`` [(x, y), ...] in ``crs_wkt``.
-    ``extent``: a shapely polygon in ``extent_crs_wkt`` (None: a buffer of ``buffer_half_width_m``)."""
+    ``extent``: a shapely polygon in ``extent_crs_wkt`` (None: a buffer of ``buffer_half_width_m``).
+    ``run_field``: a HydraulicField whose wet elements are located on the new axis, to report how
+    many have an ambiguous chainage (and to have them cached for the algorithms that follow)."""
     import shapely
 
     progress = as_progress(progress)
@@ -128,6 +131,12 @@ def build_outputs(parts, crs_wkt: str, join_tolerance_m: float = 1.0, direction:
         notes.append(f"Where points up to {half:.0f} m from the centreline can have an ambiguous chainage: "
                      + "; ".join(feature_text) + ". Segment cuts there stop where the other part of the river "
                      "becomes nearer.")
+    if run_field is not None and run_field.n:
+        from .reach import locate_field
+
+        run_axis = axis.reprojected(run_field.crs_wkt) if run_field.crs_wkt else axis
+        loc = locate_field(run_axis, run_field)
+        notes.append("The run on this axis: " + loc.summary("wet elements"))
     # ---- columns ------------------------------------------------------------------------------
     out = BuiltReach(axis, reach, notes, warnings)
     out.axis_xym = (axis.x, axis.y, axis.chainage)

@@ -134,36 +134,46 @@ def chainage_polygons(axis, edges, extent, sample_m: float | None = None, progre
         raise ChannelHabitatError(f"the centreline could not be partitioned ({exc})", "CENTRELINE") from None
     progress(0.4, None)
     n = len(ch)
-    regions = [vor.regions[r] for r in vor.point_region[:n]]
-    if any(-1 in r or len(r) < 3 for r in regions):  # pragma: no cover - the frame prevents it
-        raise ChannelHabitatError("internal error: an unbounded cell while cutting the channel", "EXTENT")
-    counts = np.array([len(r) for r in regions])
-    flat = np.concatenate(regions)
-    owner = np.repeat(np.arange(n), counts)
-    vx = vor.vertices[flat, 0]
-    vy = vor.vertices[flat, 1]
-    # order each cell's vertices by angle around its sample (cells are convex)
-    a = np.arctan2(vy - pts[owner, 1], vx - pts[owner, 0])
-    order = np.lexsort((a, owner))
-    coords = np.column_stack([vx[order] + cx, vy[order] + cy])
-    rings = shapely.linearrings(coords, indices=owner[order])
-    cells = shapely.polygons(rings)
     interval = np.clip(np.searchsorted(edges, ch, side="right") - 1, 0, len(edges) - 2)
+    # the cuts: Voronoi edges between samples of different intervals
+    rp = vor.ridge_points
+    rv = np.asarray(vor.ridge_vertices)
+    cut = (rp[:, 0] < n) & (rp[:, 1] < n)
+    cut[cut] = interval[rp[cut, 0]] != interval[rp[cut, 1]]
+    cut &= (rv[:, 0] >= 0) & (rv[:, 1] >= 0)
+    segs = np.stack([vor.vertices[rv[cut, 0]], vor.vertices[rv[cut, 1]]], axis=1) + np.array([cx, cy])
+    lines = shapely.linestrings(segs) if len(segs) else np.array([], dtype=object)
+    if len(lines):
+        # cut segments that touch the extent, clipped to a box a little larger than it (not to the
+        # extent itself: clipped ends would land a rounding error off the outline, unnoded)
+        shapely.prepare(ext)
+        lines = lines[shapely.intersects(ext, lines)]
+        ex0, ey0, ex1, ey1 = shapely.bounds(ext)
+        m = 0.01 * max(ex1 - ex0, ey1 - ey0) + 1.0
+        lines = shapely.clip_by_rect(lines, ex0 - m, ey0 - m, ex1 + m, ey1 + m)
+    noded = shapely.union_all(np.concatenate([[shapely.boundary(ext)], lines]))
+    faces = shapely.get_parts(shapely.polygonize(shapely.get_parts(noded)))
+    faces = faces[shapely.area(faces) > 0]
+    rep = shapely.point_on_surface(faces)
+    keep = shapely.contains(ext, rep)  # ext is prepared
+    faces, rep = faces[keep], rep[keep]
+    progress(0.7, None)
+    # each face lies in one interval: that of the sample whose Voronoi cell holds its inner point
+    from scipy.spatial import cKDTree
+
+    rxy = shapely.get_coordinates(rep)
+    _, near = cKDTree(np.column_stack([X, Y])).query(rxy)
+    face_interval = interval[near]
     out = []
-    k_all = np.arange(len(edges) - 1)
-    for k in k_all:
-        progress(0.4 + 0.6 * k / max(len(k_all), 1), None)
-        sel = cells[interval == k]
+    for k in range(len(edges) - 1):
+        sel = faces[face_interval == k]
         if len(sel) == 0:
             out.append(shapely.Polygon())
             continue
         try:
-            region = shapely.coverage_union_all(sel)
-        except shapely.errors.GEOSException:  # cells off by rounding: the general (slower) union
-            region = shapely.union_all(sel)
-        piece = shapely.intersection(region, ext)
-        piece = shapely.union_all([g for g in shapely.get_parts(piece)
-                                   if g.geom_type in ("Polygon", "MultiPolygon") and g.area > 0])
+            piece = shapely.coverage_union_all(sel)
+        except shapely.errors.GEOSException:  # pragma: no cover - faces of one noding form a coverage
+            piece = shapely.union_all(sel)
         out.append(from_local_geometry(axis, piece))
     progress(1.0)
     return out

@@ -300,3 +300,30 @@ def test_lines_with_m_values_that_are_not_an_axis(qgis_app):
     layer.dataProvider().addFeatures([f])
     reach, _ = read({"CENTRELINE": layer})
     assert reach.axis.method == "planar" and reach.axis.end_m == 200.0
+
+
+def test_wet_extent_of_grid_and_mesh(qgis_app):
+    from plugin.core.field import GridSupport, HydraulicField, MeshSupport
+    from plugin.gis.extent import wet_extent
+
+    rng = np.random.default_rng(3)
+    mask = rng.random((40, 60)) < 0.6
+    idx = np.flatnonzero(mask)
+    r, c = np.divmod(idx, 60)
+    n = idx.size
+    fld = HydraulicField(1000 + (c + 0.5) * 2.0, 5000 - (r + 0.5) * 2.0, np.full(n, 4.0), np.ones(n, np.float32),
+                         np.ones(n, np.float32), crs_wkt=QgsCoordinateReferenceSystem(UTM).toWkt(),
+                         support=GridSupport((1000.0, 2.0, 0.0, 5000.0, 0.0, -2.0), (40, 60), idx))
+    ext = wet_extent(fld)
+    assert ext.area == pytest.approx(n * 4.0)
+    # every wet cell centre inside, every dry one outside
+    dr, dc = np.divmod(np.flatnonzero(~mask), 60)
+    assert shapely.contains_xy(ext, fld.x, fld.y).all()
+    assert not shapely.contains_xy(ext, 1000 + (dc + 0.5) * 2.0, 5000 - (dr + 0.5) * 2.0).any()
+    # a mesh of a triangle and a quad, the quad wet only
+    nx = np.array([0.0, 10.0, 10.0, 0.0, 20.0])
+    ny = np.array([0.0, 0.0, 10.0, 10.0, 0.0])
+    fn = np.array([[0, 1, 2, 3], [1, 4, 2, -1]])
+    mfld = HydraulicField(np.array([5.0]), np.array([5.0]), np.array([100.0]), np.ones(1, np.float32),
+                          np.ones(1, np.float32), support=MeshSupport(nx, ny, fn, np.array([0])))
+    assert wet_extent(mfld).area == pytest.approx(100.0)

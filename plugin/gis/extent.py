@@ -73,7 +73,11 @@ def wet_extent(fld, progress=None):
             polys.append(shapely.from_wkb(bytes(feat.GetGeometryRef().ExportToWkb())))
         del band, ds, lyr, vds
         progress(0.8, None)
-        out = shapely.coverage_union_all(polys) if polys else shapely.Polygon()
+        polys = shapely.make_valid(np.array(polys, dtype=object)) if polys else []
+        try:
+            out = shapely.coverage_union_all(polys) if len(polys) else shapely.Polygon()
+        except shapely.errors.GEOSException:  # cells touching only at a corner: the general union
+            out = shapely.union_all(polys)
     elif isinstance(sup, MeshSupport):
         fn = sup.face_nodes[sup.index]
         valid = fn >= 0

@@ -9,39 +9,44 @@ How it is fast and still exact
 ------------------------------
 1. **Buckets.** The points' bounding box is cut into square buckets about four point spacings
    wide. The corners of the occupied buckets are located first (by the same method one level
-   coarser, or by the exact search when few). A bucket's *candidate range* is the run of
-   segment numbers spanned by the *windows* of its corners' nearest segments (a segment's window:
-   itself, its two neighbours and any segment within one piece length h along the line). Every
-   point is projected onto every segment of its bucket's range, vectorised in cache-sized
-   chunks: typically three to six segments.
-2. **Certificate.** That gives the nearest point among the candidates. It is the nearest point
-   on the whole line when (a) the window of the foot's segment lies inside the candidate range
-   and (b) the point's distance d is at most the *clearance* of the foot's piece on the point's
-   side: the largest radius r such that no disc of radius r touching the piece from that side,
-   at any point of the piece, meets a segment outside the window. The disc of radius d around
-   the point touches the line at the foot and lies inside such a disc, so nothing outside the
-   window is nearer, and the window was searched. The union of those discs along a straight piece
-   is a capsule; its clearance against a whole segment has a closed form (``_capsule_clearance``),
-   so the bound is exact geometry, not an estimate. Feet at a vertex on the outside of a bend
-   use the two neighbouring pieces' capsules and the distance to anything inside the vertex's
-   fan of normals. Clearances are computed once per line and distance cap.
-3. **Exact search** for the coarsest corners and for the few points that fail the certificate:
-   a k-d tree over points spaced at most h_kd along the line. A nearest point lies on a piece
-   with an end point within sqrt(d1^2 + h_kd^2 / 4) of the query (d1: distance to the nearest
-   tree point), so every piece with such an end point is examined (k = 4, then 32, then a ball
-   query for what is left).
+   coarser, or by the exact search when few). Each point's segment is guessed from the chainage
+   interpolated between its bucket's corners; the point is projected onto every segment of that
+   segment's *window* (itself, its two neighbours, and any segment within half the median segment
+   length along the line), and once more onto the window of the best one if that lies at the edge.
+   Vectorised in cache-sized chunks: typically three to five segments per point.
+2. **Certificate.** That gives the nearest point among the segments searched. It is the nearest
+   point on the whole line when (a) the window of the foot's segment was searched and (b) the
+   point's distance d is at most the *clearance* of the foot's piece on the point's side: the
+   largest radius r such that no disc of radius r touching the piece from that side, at any point
+   of the piece, meets a segment outside the window. The disc of radius d around the point touches
+   the line at the foot and lies inside such a disc, so nothing outside the window is nearer, and
+   the window was searched. The union of those discs along a straight piece is a capsule; its
+   clearance against a whole segment has a closed form (``_capsule_clearance``), so the bound is
+   exact geometry, not an estimate. Feet exactly at a vertex on the outside of a bend use the two
+   neighbouring pieces' capsules times cos(turn angle) (a point of the line inside the vertex's fan
+   of normals is at least that far); at the two ends the half-plane beyond the end is checked.
+   Clearances are computed once per line and distance cap, from candidate segments pruned by a
+   rigorous bound, nearest first.
+3. **Second tier.** When many points within the cap fail (a rough or densely digitised line), they
+   are searched again with wide windows (+-max(cap / 4, 4 median segment lengths)) and their own
+   clearance tables.
+4. **Exact search** for the coarsest corners and what is left: a k-d tree over points spaced at
+   most h_kd along the line. A nearest point lies on a piece with an end point within
+   sqrt(d1^2 + h_kd^2 / 4) of the query (d1: distance to the nearest tree point), so every piece
+   with such an end point is examined (k = 4, then 32, then a ball query).
 
 Ambiguity (cheap and explainable)
 ---------------------------------
 A point at distance d from the line is *ambiguous* when another part of the line, more than
 ``jump`` x d further along the line than the foot, lies within ``tolerance`` x d of the point: a
-small change of the point or of the digitising could move its chainage a long way. It is
-evaluated per centreline piece (length <= h) and side from pairs of piece midpoints and piece end
-points: a threshold distance per piece; a point is flagged when d reaches the threshold of its
-foot's piece. The reason is ``NECK`` when the other part is far along the line but close in space
-(along-line distance at least ``detour`` x the straight distance: the river loops away and comes
-back), otherwise ``BEND`` (a bend tighter than the point's offset). Beyond the tables' distance
-cap the definition is applied point by point.
+small change of the point or of the digitising could move its chainage a long way. The threshold
+distance at which that starts is tabulated per side at samples every cap/16 along the line (from
+pairs of samples within reach: a closed-form root per pair); a point is flagged when its distance
+reaches the threshold of the sample interval holding its foot. The reason is ``NECK`` when the
+other part is far along the line but close in space (along-line distance at least ``detour`` x
+the straight distance: the river loops away and comes back), otherwise ``BEND`` (a bend tighter
+than the point's offset). Beyond the tables' distance cap the definition is applied point by
+point.
 """
 
 from __future__ import annotations

@@ -170,13 +170,6 @@ banks, axis and km posts use neutral colours that do not compete with the classe
         self.addOutput(QgsProcessingOutputString("PNG_FILES", "PNG files"))
 
     # ------------------------------------------------------------------------------------------
-    def run(self, parameters, context, feedback, *args, **kwargs):
-        # Processing calls QgsProcessingAlgorithm.run(parameters, context, feedback, configuration,
-        # catchExceptions); base.py's hook has the same name, so tell the two apart by the arguments.
-        if args or kwargs:
-            return QgsProcessingAlgorithm.run(self, parameters, context, feedback, *args, **kwargs)
-        return self.compute(parameters, context, feedback)
-
     def compute(self, parameters, context, feedback):
         reach = read_reach_parameters(self, parameters, context, feedback)
         axis_crs = self.parameterAsSource(parameters, CENTRELINE, context).sourceCrs()

@@ -8,7 +8,6 @@ import numpy as np
 from qgis.core import (
     QgsCoordinateReferenceSystem,
     QgsProcessing,
-    QgsProcessingAlgorithm,
     QgsProcessingParameterDefinition,
     QgsProcessingParameterEnum,
     QgsProcessingParameterFeatureSink,
@@ -122,13 +121,6 @@ each change of class.</p>
             createByDefault=True))
         self.addParameter(QgsProcessingParameterFileDestination(
             "REPORT", "Report", "HTML files (*.html)", optional=True, createByDefault=True))
-
-    def run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs):
-        if qgis_args or qgis_kwargs:
-            # Processing calls QgsProcessingAlgorithm.run(parameters, context, feedback, configuration,
-            # catchExceptions); base.py's hook has the same name: hand the call back to QGIS.
-            return QgsProcessingAlgorithm.run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs)
-        return self.compute(parameters, context, feedback)
 
     # ------------------------------------------------------------------------------------------
     def _single(self, parameters, context):

@@ -101,7 +101,12 @@ def write(path: str, array: np.ndarray, transform, crs_wkt: str, nodata=None, co
         ds.SetGeoTransform(tuple(transform))
         if crs_wkt:
             srs = osr.SpatialReference()
-            srs.ImportFromWkt(crs_wkt)
+            try:
+                err = srs.ImportFromWkt(crs_wkt)
+            except RuntimeError:
+                err = 1
+            if err != 0:
+                raise ValueError(f"not a valid CRS definition: {crs_wkt[:80]!r}")
             ds.SetProjection(srs.ExportToWkt())
         band = ds.GetRasterBand(1)
         if nodata is not None:
@@ -116,6 +121,9 @@ def write(path: str, array: np.ndarray, transform, crs_wkt: str, nodata=None, co
             band.SetRasterColorInterpretation(gdal.GCI_PaletteIndex)
         if category_names:
             band.SetRasterCategoryNames(list(category_names))
+            # GeoTIFF keeps category names only in a PAM .aux.xml side file (and not at all where
+            # PAM is off), so they are also stored as band metadata inside the file itself.
+            band.SetMetadata({f"CLASS_{i}": str(n) for i, n in enumerate(category_names) if n})
         if metadata:
             ds.SetMetadata({str(k): str(v) for k, v in metadata.items()})
         band.WriteArray(array)
@@ -125,9 +133,14 @@ def write(path: str, array: np.ndarray, transform, crs_wkt: str, nodata=None, co
         ds = None
         os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600 files; give the usual permissions
         os.replace(tmp, path)
+        if os.path.exists(tmp + ".aux.xml"):  # PAM side file (category names, statistics)
+            os.replace(tmp + ".aux.xml", path + ".aux.xml")
+        elif os.path.exists(path + ".aux.xml"):  # a stale side file of an earlier output
+            os.remove(path + ".aux.xml")
     except BaseException:
-        if os.path.exists(tmp):
-            os.remove(tmp)
+        for p in (tmp, tmp + ".aux.xml"):
+            if os.path.exists(p):
+                os.remove(p)
         raise
     return str(path)
 
@@ -145,3 +158,19 @@ def cell_centres(transform, shape, index):
     rows, cols = np.divmod(np.asarray(index), shape[1])
     x0, dx, _, y0, _, dy = transform
     return x0 + (cols + 0.5) * dx, y0 + (rows + 0.5) * dy
+
+
+def category_names(path: str, band: int = 1) -> list:
+    """Class names of a Byte class raster written by :func:`write` (index = value)."""
+    ds = gdal.Open(str(path))
+    b = ds.GetRasterBand(band)
+    names = list(b.GetRasterCategoryNames() or [])
+    if not names:
+        md = b.GetMetadata() or {}
+        items = {int(k[6:]): v for k, v in md.items() if k.startswith("CLASS_") and k[6:].isdigit()}
+        if items:
+            names = [""] * (max(items) + 1)
+            for i, v in items.items():
+                names[i] = v
+    del b, ds
+    return names

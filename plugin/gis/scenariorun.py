@@ -227,6 +227,27 @@ def _reraise_for_row(row: ScenarioRow, err: ChannelHabitatError):
     raise ChannelHabitatError(msg, param) from None
 
 
+def _release_gdal_frames(exc: BaseException) -> None:
+    """Free the frames of ``exc``'s traceback with every GDAL dataset outliving its bands.
+
+    GDAL 3.6's Python bands do not keep their dataset alive; a reader frame left by an exception holds
+    both, and clearing it releases its variables in their order of first use (the dataset before its
+    band), which frees a band after its dataset: heap corruption. Holding the datasets here while the
+    frames are cleared, then letting them go, releases the bands first."""
+    import traceback
+
+    keep = []
+    tb = exc.__traceback__
+    while tb is not None:
+        for value in tb.tb_frame.f_locals.values():
+            items = value.values() if isinstance(value, dict) else (value,)
+            keep.extend(v for v in items if isinstance(v, gdal.Dataset))
+        tb = tb.tb_next
+    traceback.clear_frames(exc.__traceback__)
+    exc.__traceback__ = None
+    del keep
+
+
 def run_scenarios(rows: list[ScenarioRow], work, *, wet_depth_m: float, reach=None, workers: int = DEFAULT_WORKERS,
                   need_vectors: bool = False, progress: Progress | None = None, log=None,
                   infos: list | None = None, parameter: str = PARAMETER) -> TableRun:
@@ -276,9 +297,14 @@ def run_scenarios(rows: list[ScenarioRow], work, *, wet_depth_m: float, reach=No
 
         rp = Progress(report, stop.is_set)
         rp(0.0)
+        # The reader gets a progress that never raises: a stop is honoured right after the read. An
+        # exception leaving the reader while its GDAL bands are alive would free them after their
+        # datasets (see _release_gdal_frames).
+        read_progress = Progress(lambda f, _m: report(0.5 * f, None))
         try:
             t0 = time.perf_counter()
-            fld = read_run(_source_for(row, need_vectors), wet_depth_m, rp.sub(0.0, 0.5))
+            fld = read_run(_source_for(row, need_vectors), wet_depth_m, read_progress)
+            rp.check()
             if need_vectors and (fld.u is None or fld.v is None):
                 raise ChannelHabitatError("this algorithm needs velocity vectors: give u and v rasters (or a mesh "
                                           "vector group) on every row", parameter)
@@ -317,7 +343,10 @@ def run_scenarios(rows: list[ScenarioRow], work, *, wet_depth_m: float, reach=No
         except Cancelled:
             raise
         except (RuntimeError, OSError) as exc:  # GDAL / netCDF4: a file that opens but cannot be read
-            raise ChannelHabitatError(f"{row.where}: cannot read the run's files: {exc}", parameter) from None
+            msg = f"{row.where}: cannot read the run's files: {exc}"
+            _release_gdal_frames(exc)
+            del exc
+            raise ChannelHabitatError(msg, parameter) from None
 
     def overall():
         return float(fractions.sum()) / n

@@ -18,7 +18,7 @@ from qgis.core import (
 from ..core import habitat
 from ..core.field import MeshSupport
 from ..core.reach import locate_field
-from ..gis import fastwrite, geotiff, habitatstyles, outputs, patches, reachinput, runinput, schemeinput
+from ..gis import fastwrite, geotiff, habitatstyles, memory, outputs, patches, reachinput, runinput, schemeinput
 from ..gis.habitatreport import build_report
 from .base import ChannelHabitatAlgorithm
 
@@ -119,6 +119,7 @@ by coverage union. The CRS must be projected, in metres.</p>
         # --- read ---------------------------------------------------------------------------------
         fld, src = runinput.read_run_parameters(self, parameters, context, feedback,
                                                 progress=self.progress(feedback, 0.0, 0.25))
+        memory.release()  # the readers' buffers and GDAL's block cache are free again: hand them back
         habitat.check_metric_crs(fld.crs_wkt, src.params["mesh_crs"] if src.is_mesh else src.params["depth"])
         line = self.parameterAsSource(parameters, reachinput.CENTRELINE, context)
         crs_note = habitat.reprojection_note(reachinput.crs_wkt_of(line.sourceCrs()) if line else "", fld.crs_wkt)
@@ -134,6 +135,7 @@ by coverage union. The CRS must be projected, in metres.</p>
         progress(0.0, "locating the run along the reach")
         location = locate_field(reach, fld)
         analysis = habitat.classify_run(fld, reach, scheme, location=location, progress=progress.sub(0.2, 0.3))
+        memory.release()
         is_mesh = isinstance(fld.support, MeshSupport)
         polys = patches.face_polygons(fld.support) if is_mesh else None
         seg_geoms, zone_geoms = habitat.reach_polygons(reach)
@@ -206,6 +208,8 @@ by coverage union. The CRS must be projected, in metres.</p>
             self.will_write(report_path)
             report.write(report_path)
             results["REPORT"] = report_path
+        del analysis, ptc, fld, location, polys
+        memory.release()
         progress(1.0)
         return results
 

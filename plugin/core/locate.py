@@ -67,7 +67,7 @@ DEFAULT_TOLERANCE = 1.10  # another part within 110 % of the nearest distance ..
 DEFAULT_JUMP = 1.5  # ... and more than 1.5 x that distance away along the line
 DEFAULT_DETOUR = 3.0  # along-line / straight distance at least 3: a neck; below: a tight bend
 
-_CHUNK = 16384
+_CHUNK = 32768
 _MAX_RANGE = 64  # candidate range wider than this: the bucket's points go to the exact search
 _MAX_BUCKETS = 4_000_000
 _EXACT_BELOW = 4000  # fewer points than this: exact search only

@@ -12,6 +12,7 @@ from qgis.PyQt.QtGui import QIcon
 from .resources import resource_path
 
 PROVIDER_ID = "channelhabitat"
+IMPORT_ERRORS: dict = {}  # module name -> traceback of algorithm modules that failed to import
 
 
 def provider_icon() -> QIcon:
@@ -28,7 +29,17 @@ def algorithm_classes() -> list:
     for mod in sorted(pkgutil.iter_modules([str(Path(algorithms.__file__).parent)]), key=lambda m: m.name):
         if mod.name.startswith("_") or mod.name == "base":
             continue
-        module = importlib.import_module(f"{algorithms.__name__}.{mod.name}")
+        try:
+            module = importlib.import_module(f"{algorithms.__name__}.{mod.name}")
+        except Exception:  # one broken module must not hide every other algorithm
+            import traceback
+
+            from qgis.core import Qgis, QgsMessageLog
+
+            QgsMessageLog.logMessage(f"algorithm module {mod.name} failed to load:\n{traceback.format_exc()}",
+                                     "Channel Habitat", Qgis.Critical)
+            IMPORT_ERRORS[mod.name] = traceback.format_exc()
+            continue
         for obj in vars(module).values():
             if (isinstance(obj, type) and issubclass(obj, ChannelHabitatAlgorithm)
                     and obj is not ChannelHabitatAlgorithm and getattr(obj, "ALG_ID", "")

@@ -885,20 +885,33 @@ def locate_field(reach, fld, progress=None) -> Location:
         pos_c = np.zeros(len(ids), dtype=np.int64)
         hit = np.zeros(len(ids), dtype=bool)
     miss = np.flatnonzero(~hit)
+    if miss.size == len(ids):  # nothing cached for these elements: locate them all, then remember
+        loc = axis.locate(fld.x, fld.y, spacing=_support_spacing(sup), progress=progress)
+        _overlap_check(loc, axis)
+        ascending = len(ids) < 2 or bool(np.all(ids[1:] > ids[:-1]))
+        order = slice(None) if ascending else np.argsort(ids, kind="stable")
+        new_entry = _CacheEntry(ids[order].copy(), loc.chainage[order].copy(), loc.offset[order].copy(),
+                                loc.ambiguity[order].copy(), loc.end[order].copy(), loc.method)
+        if entry is not None:  # other elements of this grid were located before: keep them too
+            allid = np.concatenate([entry.index, new_entry.index])
+            o = np.argsort(allid, kind="stable")
+            new_entry = _CacheEntry(allid[o], np.concatenate([entry.chainage, new_entry.chainage])[o],
+                                    np.concatenate([entry.offset, new_entry.offset])[o],
+                                    np.concatenate([entry.ambiguity, new_entry.ambiguity])[o],
+                                    np.concatenate([entry.end, new_entry.end])[o], entry.method)
+        _LOCATE_CACHE[key] = new_entry
+        _LOCATE_CACHE.move_to_end(key)
+        _evict(keep=key)
+        return loc
     if miss.size:
         new = axis.locate(fld.x[miss], fld.y[miss], spacing=_support_spacing(sup), progress=progress)
         nid = ids[miss]
-        if entry is None:
-            order = np.argsort(nid, kind="stable")
-            entry = _CacheEntry(nid[order], new.chainage[order], new.offset[order], new.ambiguity[order],
-                                new.end[order], new.method)
-        else:
-            allid = np.concatenate([entry.index, nid])
-            order = np.argsort(allid, kind="stable")
-            entry = _CacheEntry(allid[order], np.concatenate([entry.chainage, new.chainage])[order],
-                                np.concatenate([entry.offset, new.offset])[order],
-                                np.concatenate([entry.ambiguity, new.ambiguity])[order],
-                                np.concatenate([entry.end, new.end])[order], entry.method)
+        allid = np.concatenate([entry.index, nid])
+        order = np.argsort(allid, kind="stable")
+        entry = _CacheEntry(allid[order], np.concatenate([entry.chainage, new.chainage])[order],
+                            np.concatenate([entry.offset, new.offset])[order],
+                            np.concatenate([entry.ambiguity, new.ambiguity])[order],
+                            np.concatenate([entry.end, new.end])[order], entry.method)
         _LOCATE_CACHE[key] = entry
         _LOCATE_CACHE.move_to_end(key)
         pos_c = np.searchsorted(entry.index, ids)

@@ -18,7 +18,7 @@ from qgis.core import (
 from ..core import habitat
 from ..core.field import MeshSupport
 from ..core.reach import locate_field
-from ..gis import fastwrite, geotiff, habitatstyles, memory, outputs, patches, reachinput, runinput, schemeinput
+from ..gis import geotiff, habitatstyles, memory, outputs, patches, reachinput, runinput, schemeinput
 from ..gis.habitatreport import build_report
 from .base import ChannelHabitatAlgorithm
 
@@ -172,7 +172,7 @@ by coverage union. The CRS must be projected, in metres.</p>
         if is_mesh:
             if parameters.get("MESH_CLASSES") is not None:
                 face_cols = habitat.face_table(analysis)
-                results["MESH_CLASSES"] = fastwrite.write_columns(
+                results["MESH_CLASSES"] = outputs.write_features(
                     self, parameters, context, "MESH_CLASSES", face_cols, polys, crs, QgsWkbTypes.Polygon,
                     progress=progress.sub(0.0, 0.3))
                 self._style(context, results["MESH_CLASSES"], habitatstyles.class_styler(scheme), "Habitat classes")

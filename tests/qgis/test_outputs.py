@@ -25,3 +25,13 @@ def test_values_nulls_and_dates():
     d = np.array(["2021-02-28", "NaT"], dtype="datetime64[D]")
     assert _py(d[0], QVariant.Date) == QDate(2021, 2, 28)
     assert _py(d[1], QVariant.Date) is None
+
+
+def test_column_lists_nulls():
+    from plugin.gis.outputs import _column_list
+
+    assert _column_list(np.array([1.0, np.nan]), QVariant.Double) == [1.0, None]
+    assert _column_list(np.ma.masked_array([1, 2], mask=[True, False]), QVariant.LongLong) == [None, 2]
+    assert _column_list(np.array([3, 4], dtype=np.int16), QVariant.LongLong) == [3, 4]
+    assert _column_list(["a", None], QVariant.String) == ["a", None]
+    assert _column_list(np.array(["2020-01-02"], dtype="datetime64[D]"), QVariant.Date) == [QDate(2020, 1, 2)]

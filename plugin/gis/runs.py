@@ -29,7 +29,7 @@ from ..core.sources import RunSource
 
 gdal.UseExceptions()
 
-STRIP_ROWS = 1024
+STRIP_CELLS = 8_000_000  # cells per strip read: memory stays bounded on any grid size
 
 
 def srs_from_wkt(wkt: str) -> osr.SpatialReference | None:
@@ -54,11 +54,15 @@ def is_geographic(wkt: str) -> bool:
 
 
 def _open(path: str, param: str):
-    if not path or not os.path.exists(path):
+    """Open a raster; GeoTIFFs with multi-threaded block decoding (GDAL >= 3.6, NUM_THREADS)."""
+    if not path or not os.path.exists(path.split("|")[0]):
         raise ChannelHabitatError(f"raster '{path}' does not exist; give the path of an existing raster",
                                   param)
     try:
-        return gdal.Open(str(path))
+        ds = gdal.Open(str(path))
+        if ds.GetDriver().ShortName == "GTiff":
+            ds = gdal.OpenEx(str(path), gdal.OF_RASTER, open_options=["NUM_THREADS=ALL_CPUS"])
+        return ds
     except RuntimeError as exc:
         raise ChannelHabitatError(f"cannot open raster '{path}': {exc}", param) from None
 
@@ -130,9 +134,10 @@ def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, 
         r0 = max(int(np.floor((bbox[3] - y0) / dy)), 0)
         r1 = min(int(np.ceil((bbox[1] - y0) / dy)), rows)
     ncols = max(c1 - c0, 0)
-    for start in range(r0, r1, STRIP_ROWS):
+    strip_rows = max(256, (STRIP_CELLS // max(ncols, 1)) // 256 * 256)
+    for start in range(r0, r1, strip_rows):
         progress((start - r0) / max(r1 - r0, 1), "reading rasters")
-        n = min(STRIP_ROWS, r1 - start)
+        n = min(strip_rows, r1 - start)
         d = dband.ReadAsArray(c0, start, ncols, n)
         d = d.astype(np.float32, copy=False)
         valid = np.isfinite(d)
@@ -147,6 +152,7 @@ def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, 
         rr, cc = np.divmod(flat, ncols)
         idx_parts.append((rr + start) * cols + (cc + c0))
         d_parts.append(d.ravel()[flat])
+        del d, valid, wet
         for k, b in bands.items():
             a = b.ReadAsArray(c0, start, ncols, n).astype(np.float32, copy=False).ravel()[flat]
             nd = nds[k]

@@ -328,13 +328,7 @@ def reach_in_crs(reach: Reach, crs_wkt: str):
     from pyproj import Transformer
 
     tr = Transformer.from_crs(_crs(axis.crs_wkt), _crs(crs_wkt), always_xy=True)
-    if hasattr(axis, "reprojected"):
-        new_axis = axis.reprojected(crs_wkt)
-    else:  # pragma: no cover - older axes
-        from .reach import ReachAxis
-
-        x, y = tr.transform(axis.x, axis.y)
-        new_axis = ReachAxis(x, y, crs_wkt, datum_m=axis.datum_m, method=axis.method, chainage=axis.chainage)
+    new_axis = axis.reprojected(crs_wkt)  # keeps chainage, origin and direction
     out = copy.copy(reach)
     out.axis = new_axis
 

@@ -217,25 +217,36 @@ class GroupInfo:
 
 
 def face_geometry(node_x, node_y, face_nodes):
-    """Centroid (x, y) and area of every polygon face (shoelace, any number of nodes)."""
-    fn = face_nodes
-    valid = fn >= 0
-    nn = valid.sum(axis=1)
-    safe = np.where(valid, fn, 0)
-    # Next node index with wrap-around inside each face's valid nodes.
-    col = np.arange(fn.shape[1])[None, :]
-    nxt_col = np.where(col + 1 < nn[:, None], col + 1, 0)
-    nxt = np.take_along_axis(safe, nxt_col, axis=1)
-    # Use coordinates relative to the first node for numerical accuracy.
-    ox, oy = node_x[safe[:, 0]], node_y[safe[:, 0]]
-    x0 = node_x[safe] - ox[:, None]
-    y0 = node_y[safe] - oy[:, None]
-    x1 = node_x[nxt] - ox[:, None]
-    y1 = node_y[nxt] - oy[:, None]
-    cross = np.where(valid, x0 * y1 - x1 * y0, 0.0)
-    a2 = cross.sum(axis=1)
-    cx = np.where(valid, (x0 + x1) * cross, 0.0).sum(axis=1)
-    cy = np.where(valid, (y0 + y1) * cross, 0.0).sum(axis=1)
+    """Centroid (x, y) and area of every polygon face (shoelace, any number of nodes).
+
+    Works column by column of ``face_nodes`` (a few columns, millions of faces): coordinates are
+    taken relative to each face's first node for accuracy; a face's last valid node wraps to its
+    first."""
+    fn = np.asarray(face_nodes)
+    n_faces, m = fn.shape
+    valid = [fn[:, k] >= 0 for k in range(m)]
+    first = fn[:, 0]
+    ox, oy = node_x[first], node_y[first]
+    xs, ys = [], []
+    for k in range(m):
+        idx = np.where(valid[k], fn[:, k], first) if k else first
+        xs.append(node_x[idx] - ox)
+        ys.append(node_y[idx] - oy)
+    a2 = np.zeros(n_faces)
+    cx = np.zeros(n_faces)
+    cy = np.zeros(n_faces)
+    for k in range(m):
+        if k + 1 < m:  # next node: column k+1 where it is valid, else back to the first node
+            x1 = np.where(valid[k + 1], xs[k + 1], xs[0])
+            y1 = np.where(valid[k + 1], ys[k + 1], ys[0])
+        else:
+            x1, y1 = xs[0], ys[0]
+        cross = xs[k] * y1 - x1 * ys[k]
+        if k:  # invalid columns repeat the first node: their cross product is 0 already
+            cross = np.where(valid[k], cross, 0.0)
+        a2 += cross
+        cx += (xs[k] + x1) * cross
+        cy += (ys[k] + y1) * cross
     with np.errstate(invalid="ignore", divide="ignore"):
         fx = ox + cx / (3.0 * a2)
         fy = oy + cy / (3.0 * a2)

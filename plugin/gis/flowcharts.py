@@ -21,12 +21,14 @@ from __future__ import annotations
 
 import math
 
+import matplotlib
 import numpy as np
+from matplotlib.figure import Figure
 from matplotlib.ticker import FixedLocator, FuncFormatter, NullLocator
 
 from ..core.curves import pchip_log_q
 from ..core.units import M3S_PER_MLD
-from .charts import GRID, INK, MUTED, new_figure, style_axes
+from .charts import GRID, INK, MUTED, RC, style_axes
 
 # Okabe & Ito (2008): blue, vermillion, bluish green, reddish purple, orange, sky blue, black, yellow.
 REGIME_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000", "#B8A200")
@@ -106,17 +108,29 @@ def _q_range(curves, regimes):
     return float(qs.min()), float(qs.max())
 
 
-def _legend_top(fig, handles, labels, ncol=None, height_in: float = 0.32):
-    """A figure legend in a strip across the top: the constrained layout is told to keep the strip
-    free (matplotlib 3.6 does not place figure legends itself)."""
+def _panels(nrows: int, ncols: int, width_in: float = 9.5, panel_h_in: float = 1.9, top_in: float = 0.6,
+           bottom_in: float = 0.55, left_in: float = 0.75, right_in: float = 0.2, hgap_in: float = 0.8,
+           wgap_in: float = 0.35, **kw):
+    """(Figure, axes[nrows, ncols]) in the house style with margins fixed in inches (no layout engine:
+    laying out many small panels by constraints costs more than drawing them)."""
+    height = top_in + bottom_in + nrows * panel_h_in + (nrows - 1) * hgap_in
+    panel_w = (width_in - left_in - right_in - (ncols - 1) * wgap_in) / ncols
+    with matplotlib.rc_context(RC):
+        fig = Figure(figsize=(width_in, height), dpi=100)
+        axes = fig.subplots(nrows, ncols, squeeze=False, **kw)
+    fig.subplots_adjust(left=left_in / width_in, right=1 - right_in / width_in, bottom=bottom_in / height,
+                        top=1 - top_in / height, hspace=hgap_in / panel_h_in, wspace=wgap_in / panel_w)
+    for ax in axes.ravel():
+        style_axes(ax)
+    return fig, axes
+
+
+def _legend_top(fig, handles, labels, ncol=None):
+    """A figure legend across the top margin."""
     if not handles:
         return
-    ncol = ncol or min(len(labels), 6)
-    rows = int(math.ceil(len(labels) / ncol))
-    frac = min(0.4, (0.08 + height_in * rows) / fig.get_figheight())
-    fig.get_layout_engine().set(rect=(0.0, 0.0, 1.0, 1.0 - frac))
-    fig.legend(handles, labels, loc="upper left", bbox_to_anchor=(0.01, 0.995), ncol=ncol, frameon=False,
-               fontsize=8, handlelength=3.2, borderaxespad=0.2)
+    fig.legend(handles, labels, loc="upper left", bbox_to_anchor=(0.01, 0.998), ncol=ncol or min(len(labels), 6),
+               frameon=False, fontsize=8, handlelength=3.2, borderaxespad=0.2)
 
 
 def _hide_extra(axes, used: int):
@@ -134,7 +148,7 @@ def class_share_panels(curves, unit, regimes, title: str = "", max_cols: int = 4
     u = curves.unit_index(unit)
     names = curves.class_names
     nrows, ncols = _grid(len(names), max_cols)
-    fig, axes = new_figure(width_in, 0.6 + 2.35 * nrows, nrows, ncols, squeeze=False, sharey=True)
+    fig, axes = _panels(nrows, ncols, width_in, 1.9, top_in=0.6, sharey=True)
     qmin, qmax = _q_range(curves, regimes)
     handles, labels = [], []
     for k, name in enumerate(names):
@@ -178,7 +192,7 @@ def target_panels(curves, results, targets, regimes, max_cols: int = 2, width_in
     """One panel per target: the class set's % of the unit against discharge per regime, the threshold
     (dashed) and the smallest discharge that meets it (dotted drop line and a filled marker)."""
     nrows, ncols = _grid(len(targets), max_cols)
-    fig, axes = new_figure(width_in, 0.5 + 3.0 * nrows, nrows, ncols, squeeze=False)
+    fig, axes = _panels(nrows, ncols, width_in, 2.3, top_in=0.75, hgap_in=1.3, wgap_in=0.75)
     qmin, qmax = _q_range(curves, regimes)
     by = {(r.regime, r.target): r for r in results}
     for k, tg in enumerate(targets):
@@ -216,7 +230,8 @@ def composition_grid(curves, units, regimes, scheme, width_in: float = 9.5):
     """Rows = units (reach, zones), columns = regimes: 100 % stacked class shares against discharge, in
     the class colours; straight between the runs (so the layers add up to 100 % everywhere)."""
     nrows, ncols = len(units), len(regimes)
-    fig, axes = new_figure(width_in, 0.7 + 1.75 * nrows, nrows, ncols, squeeze=False, sharey=True)
+    fig, axes = _panels(nrows, ncols, width_in, 1.35, top_in=0.65, hgap_in=0.2, left_in=1.0, wgap_in=0.2,
+                       sharey=True)
     qmin, qmax = _q_range(curves, regimes)
     colours = scheme.colours if len(scheme.colours) == len(curves.class_names) else None
     for r, unit in enumerate(units):
@@ -241,7 +256,7 @@ def composition_grid(curves, units, regimes, scheme, width_in: float = 9.5):
 def wet_area_panels(curves, units, regimes, max_cols: int = 4, width_in: float = 9.5):
     """Wet area (ha) against discharge: one panel per unit, one line per regime."""
     nrows, ncols = _grid(len(units), max_cols)
-    fig, axes = new_figure(width_in, 0.6 + 2.2 * nrows, nrows, ncols, squeeze=False)
+    fig, axes = _panels(nrows, ncols, width_in, 1.8, top_in=0.6, wgap_in=0.55)
     qmin, qmax = _q_range(curves, regimes)
     handles, labels = [], []
     for k, unit in enumerate(units):
@@ -271,7 +286,8 @@ def segment_share_maps(curves, classes, regimes, width_in: float = 9.5):
         return None
     idx = curves.class_indices(classes)
     ncols = len(regimes)
-    fig, axes = new_figure(width_in, 1.2 + 0.16 * len(seg), 1, ncols, squeeze=False, sharey=True)
+    fig, axes = _panels(1, ncols, width_in, max(1.5, 0.13 * len(seg)), top_in=0.3, bottom_in=0.95, right_in=1.05,
+                       wgap_in=0.2, sharey=True)
     edges_km = np.array([curves.units[seg[0]].chainage_from_m] + [curves.units[i].chainage_to_m for i in seg]) / 1e3
     mesh = None
     for c, regime in enumerate(regimes):
@@ -289,7 +305,9 @@ def segment_share_maps(curves, classes, regimes, width_in: float = 9.5):
         ax.set_ylim(edges_km[-1], edges_km[0])
         style_axes(ax, "run (ML/d)", "chainage (km)  ↓ downstream" if c == 0 else None, regime)
         ax.grid(False)
-    cb = fig.colorbar(mesh, ax=axes.ravel().tolist(), shrink=0.9, pad=0.01)
+    box = axes[0, -1].get_position()
+    cax = fig.add_axes([box.x1 + 0.15 / width_in, box.y0, 0.14 / width_in, box.height])
+    cb = fig.colorbar(mesh, cax=cax)
     cb.set_label(f"{'+'.join(curves.class_names[i] for i in idx)} (% of segment wet area)", fontsize=8)
     cb.ax.tick_params(labelsize=7)
     return fig
@@ -303,7 +321,7 @@ def value_panels(panels, regimes, ylabel: str, max_cols: int = 4, width_in: floa
     """Any value against discharge: ``panels`` is [(title, {regime: (q_mld array, value array)})]; one
     panel each, one line per regime (PCHIP on ln q between runs, as habitatseries interpolates)."""
     nrows, ncols = _grid(len(panels), max_cols)
-    fig, axes = new_figure(width_in, 0.6 + 2.3 * nrows, nrows, ncols, squeeze=False)
+    fig, axes = _panels(nrows, ncols, width_in, 1.9, top_in=0.6, wgap_in=0.55)
     qs = [q for _, d in panels for q, _ in d.values() if len(q)]
     qmin = min(float(np.min(q)) for q in qs)
     qmax = max(float(np.max(q)) for q in qs)
@@ -340,7 +358,7 @@ def suitability_curves(curve_set, width_in: float = 9.5):
     """The set's suitability curves: piecewise linear through the points (markers), clamped beyond the
     first and last point (the flat continuation drawn dashed)."""
     variables = curve_set.variables
-    fig, axes = new_figure(width_in, 2.9, 1, max(len(variables), 1), squeeze=False)
+    fig, axes = _panels(1, max(len(variables), 1), width_in, 2.2, top_in=0.3, bottom_in=0.5, wgap_in=0.5)
     units = {"depth": "depth (m)", "velocity": "depth-averaged speed (m/s)"}
     for k, var in enumerate(variables):
         ax = axes[0, k]

@@ -6,6 +6,7 @@ The science is in ``core/drift.py``; this module reads and writes.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import sys
 
@@ -100,6 +101,26 @@ def _row_job(args):
     return _drift_row(*args)
 
 
+@contextlib.contextmanager
+def _main_not_rerun():
+    """Start worker processes without re-running the caller's main script in them.
+
+    A 'spawn' worker normally imports the parent's ``__main__`` file again; a script that calls
+    Processing without an ``if __name__ == "__main__"`` guard would then run itself in every worker.
+    The workers only need this module, so while they start, ``__main__`` shows no file and no spec."""
+    main = sys.modules.get("__main__")
+    saved = {k: getattr(main, k) for k in ("__file__", "__spec__") if main is not None and hasattr(main, k)}
+    try:
+        if main is not None:
+            main.__spec__ = None
+            if "__file__" in saved:
+                del main.__file__
+        yield
+    finally:
+        for k, v in saved.items():
+            setattr(main, k, v)
+
+
 def can_use_processes() -> bool:
     """Worker processes need a Python interpreter to start (scripts, qgis_process, tests); inside the
     QGIS desktop application ``sys.executable`` is QGIS itself, so rows run one after another."""
@@ -134,8 +155,9 @@ def drift_rows(rows, reach, scheme, options, wet_depth: float, seeds=None, worke
     progress(0.0, f"drifting {n} runs on {workers} processes")
     pool = cf.ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn"))
     try:
-        futures = {pool.submit(_row_job, (row, reach, scheme, options, wet_depth, seeds)): i
-                   for i, row in enumerate(rows)}
+        with _main_not_rerun():  # workers start during submit
+            futures = {pool.submit(_row_job, (row, reach, scheme, options, wet_depth, seeds)): i
+                       for i, row in enumerate(rows)}
         pending = set(futures)
         while pending:
             finished, pending = cf.wait(pending, timeout=0.5, return_when=cf.FIRST_COMPLETED)

@@ -351,3 +351,42 @@ def test_demo_weir_pool_holds_drift_in_slow_water_longer_than_the_natural_river(
     assert slow["weir"] > 3.0 * slow["natural"]
     assert reach["weir"]["t_total_p50_h"] > reach["natural"]["t_total_p50_h"]
     assert reach["weir"]["n_downstream"] >= 0.9 * 40 and reach["natural"]["n_downstream"] >= 0.9 * 40
+
+
+def test_worker_processes_do_not_rerun_an_unguarded_script(tmp_path):
+    # A script without an `if __name__ == "__main__"` guard that drifts a scenario table on two worker
+    # processes: the workers must not run the script again (it would print twice, or hang).
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    rows = []
+    for q, u in ((1000, 0.25), (2000, 0.5)):
+        f = write_channel(tmp_path / "runs", u=u, name=f"r{q}_")
+        rows.append(f"test,{q},ML/d,{os.path.basename(f['depth'])},{os.path.basename(f['u'])},"
+                    f"{os.path.basename(f['v'])}")
+    table = tmp_path / "runs" / "scenarios.csv"
+    table.write_text("regime,discharge,unit,depth,u,v\n" + "\n".join(rows) + "\n")
+    root = Path(__file__).resolve().parents[2]
+    script = tmp_path / "unguarded.py"
+    script.write_text(f"""
+import sys
+sys.path.insert(0, {str(root)!r})
+import numpy as np
+from plugin.core import drift
+from plugin.core.classes import velocity_preset
+from plugin.core.reach import Reach, ReachAxis
+from plugin.core.scenario import read_scenarios
+from plugin.gis.driftio import drift_rows
+print("script body ran", flush=True)
+axis = ReachAxis(np.array([{X0}, {X0 + LENGTH}]), np.array([{Y0 + WIDTH / 2}] * 2))
+reach = Reach(axis, np.array([0.0, {LENGTH}]), [0.0, {LENGTH}], ["reach"])
+out = drift_rows(read_scenarios({str(table)!r}), reach, velocity_preset(), drift.DriftOptions(n_particles=3),
+                 0.05, workers=2)
+print("travel", [round(float(r.result.travel_s[0]), 6) for _, _, r in out], flush=True)
+""")
+    proc = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.count("script body ran") == 1
+    travel = eval(proc.stdout.split("travel", 1)[1].strip())  # noqa: S307 - our own printed list
+    assert travel == pytest.approx([(LENGTH - 2.0) / 0.25, (LENGTH - 2.0) / 0.5], rel=1e-9)

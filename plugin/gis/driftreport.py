@@ -128,6 +128,7 @@ def class_time_vs_discharge(summary: dict, scheme):
             ax.fill_between(x, p10, p90, color=colour, alpha=0.15, linewidth=0)
             ax.plot(x, p50, color=colour, marker="o", markersize=3, linewidth=1.4, label=regime)
         ax.set_xscale("log")
+        _discharge_ticks(ax, q[rows])
         charts.style_axes(ax, "discharge (ML/d)" if j // ncols == nrows - 1 else None,
                           f"{'days' if unit == 'd' else 'hours'}", name)
         ax.set_ylim(bottom=0)
@@ -135,6 +136,22 @@ def class_time_vs_discharge(summary: dict, scheme):
         axes[j // ncols][j % ncols].set_visible(False)
     axes[0][0].legend(frameon=False, fontsize=8)
     return fig
+
+
+def _discharge_ticks(ax, q):
+    """Plain-number ticks on a log discharge axis: the discharges themselves when few, else 1-2-5."""
+    from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter
+
+    qs = np.unique(np.asarray(q, dtype=float)[np.isfinite(q)])
+    if 0 < qs.size <= 8:
+        ticks = qs
+    else:
+        lo, hi = (qs.min(), qs.max()) if qs.size else (1.0, 10.0)
+        ticks = [m * 10.0 ** e for e in range(int(np.floor(np.log10(lo))), int(np.ceil(np.log10(hi))) + 1)
+                 for m in (1, 2, 5) if lo <= m * 10.0 ** e <= hi]
+    ax.xaxis.set_major_locator(FixedLocator(ticks))
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:,.0f}".replace(",", "\u2009")))
+    ax.xaxis.set_minor_formatter(NullFormatter())
 
 
 def paths_map(geoms, axis, title: str = "", max_paths: int = 400, stranded=None):

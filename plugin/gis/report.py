@@ -45,7 +45,7 @@ __all__ = ["Report", "unit_of", "format_value", "write_text_atomic", "plugin_ver
 _SUFFIX_UNITS = (
     ("_km2", "km²"), ("_m2", "m²"), ("_ha", "ha"), ("_m3s", "m³/s"), ("_mld", "ML/d"), ("_ml", "ML"),
     ("_gl", "GL"), ("_m3", "m³"), ("_ms", "m/s"), ("_km", "km"), ("_mm", "mm"), ("_m", "m"),
-    ("_per_s", "1/s"), ("_days", "days"), ("_day", "days"), ("_hours", "h"), ("_h", "h"),
+    ("_per_s", "1/s"), ("_days", "days"), ("_day", "days"), ("_d", "days"), ("_hours", "h"), ("_h", "h"),
     ("_min", "min"), ("_s", "s"), ("_pct", "%"), ("_percent", "%"), ("_deg", "°"),
 )
 

@@ -213,8 +213,10 @@ def summarise_run(analysis: RunAnalysis, progress=None, profile_bin_m: float | N
     if percentiles and profile_bin_m != 0:
         bins = profile_bins(reach, fld.weight_unit_m2, profile_bin_m)
         groupings.append((bin_of(bins, analysis.chainage, outside), len(bins) - 1))
+    # the profile needs speed percentiles only
+    wish = [percentiles] * 3 + ([("v",)] if bins is not None else [])
     tables = stats.summarise_groupings(fld.speed, fld.depth, fld.area, analysis.codes, groupings, scheme.names,
-                                       fld.weight_unit_m2, froude=analysis.froude, percentiles=percentiles,
+                                       fld.weight_unit_m2, froude=analysis.froude, percentiles=wish,
                                        threads=threads)
     progress.check()
     analysis.segment_stats = {**segment_table_keys(reach), **tables[0]}

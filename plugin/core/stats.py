@@ -19,9 +19,12 @@ sqrt(sum(a (x - mean)^2) / sum(a)) over the mean (computed from shifted sums in 
 Diversity over class area fractions p_i (of the classified area): Shannon H = -sum p_i ln p_i
 (natural log, 0 ln 0 = 0; Shannon 1948); Simpson 1 - sum p_i^2 (Simpson 1949, the Gini-Simpson form).
 
-Speed: one value sort per variable is shared by every grouping (``value_orders``); when all weights
-are equal (rasters) percentiles come from per-group partial sorts (``np.percentile``) instead, and the
-sums of every grouping come from one pass over a combined group key.
+Speed: when every weight is 1 (a raster) the percentiles of a group are order statistics of its
+values: each group's values are gathered once and the two values around every percentile position are
+selected in place (``np.partition``, linear time, no full sort; :func:`grouped_unit_percentiles`), the
+interpolation being the same formula as for cumulative weights. With unequal weights (meshes) one value
+sort per variable is shared by every grouping (``value_orders``). The sums of every grouping come from one
+pass over a combined group key.
 """
 
 from __future__ import annotations
@@ -179,6 +182,46 @@ def grouped_weighted_percentiles(values, weights, groups, n_groups: int, q, orde
     return out
 
 
+def grouped_unit_percentiles(values, grouping, q) -> np.ndarray:
+    """(n_groups, len(q)) percentiles of equally weighted elements (every weight 1), NaN for empty
+    groups; the same values as :func:`grouped_weighted_percentiles` with unit weights, bit for bit.
+
+    ``grouping``: a :class:`Grouping` (its stable group order is reused). Position h = (n - 1) q / 100
+    in the group's sorted values; the values at floor(h) and floor(h) + 1 are found by selection
+    (``np.partition`` on the group's gathered values, linear time; numpy releases the GIL, so groupings
+    and variables can run in threads) and interpolated as v0 + (v1 - v0) (h - floor h). Non-finite values
+    are ignored."""
+    values = np.asarray(values)
+    q = _check_q(q)
+    g = grouping
+    out = np.full((g.n_groups, len(q)), np.nan)
+    if values.size == 0 or g.n_groups == 0:
+        return out
+    finite = np.isfinite(values)
+    if finite.all():
+        perm, counts = g.perm, g.counts
+    else:
+        key = group_keys(g.groups, g.n_groups, finite)
+        counts = np.bincount(key, minlength=g.n_groups + 1)[: g.n_groups]
+        perm = np.argsort(key, kind="stable")[: int(counts.sum())]
+    gathered = values[perm]  # a copy: partitioned in place below
+    ends = np.cumsum(counts)
+    starts = ends - counts
+    for gi in np.nonzero(counts > 0)[0]:
+        x = gathered[starts[gi]:ends[gi]]
+        total = float(counts[gi])
+        h = (total - 1.0) * q / 100.0
+        j0 = np.floor(h)
+        frac = h - j0
+        k0 = j0.astype(np.int64)
+        k1 = np.minimum(k0 + 1, x.size - 1)
+        x.partition(np.unique(np.concatenate([k0, k1])))
+        v0 = x[k0].astype(np.float64)
+        v1 = x[k1].astype(np.float64)
+        out[gi] = v0 + (v1 - v0) * frac
+    return out
+
+
 def grouped_percentiles(values, groups, n_groups: int, q, perm=None, counts=None) -> np.ndarray:
     """(n_groups, len(q)) unweighted percentiles (numpy 'linear'), each group by ``np.percentile``
     on its own values (a partial sort). ``perm``/``counts``: a stable group order and group sizes
@@ -290,7 +333,8 @@ class Grouping:
 def _combined_sums(groupings, quantities, max_cells: int = 1 << 22):
     """Sums of each quantity per group of each grouping, from one bincount per quantity over the
     combined key of all groupings (when the combined table is small), else per grouping.
-    ``quantities`` may yield arrays lazily (one is alive at a time)."""
+    ``quantities`` may yield arrays lazily (one is alive at a time); ``None`` repeats the sums of the
+    first quantity."""
     sizes = [g.n_groups + 1 for g in groupings]
     total = int(np.prod(sizes, dtype=np.float64))
     out = [[] for _ in groupings]
@@ -301,6 +345,10 @@ def _combined_sums(groupings, quantities, max_cells: int = 1 << 22):
             combo += g.key
         nd = len(groupings)
         for qv in quantities:
+            if qv is None:  # the same as the first quantity
+                for i in range(nd):
+                    out[i].append(out[i][0].copy())
+                continue
             t = np.bincount(combo, weights=qv, minlength=total).reshape(sizes[::-1])
             for i, g in enumerate(groupings):
                 axis_i = nd - 1 - i  # the first grouping is the least significant digit
@@ -309,6 +357,9 @@ def _combined_sums(groupings, quantities, max_cells: int = 1 << 22):
         return out
     for qv in quantities:
         for i, g in enumerate(groupings):
+            if qv is None:
+                out[i].append(out[i][0].copy())
+                continue
             out[i].append(np.bincount(g.key, weights=qv, minlength=g.n_groups + 1)[: g.n_groups])
     return out
 
@@ -338,12 +389,26 @@ def _class_sums(groupings, cls_key, area, n_cls: int, max_cells: int = 1 << 22):
             for g in groupings]
 
 
+def _percentile_wish(percentiles, n_groupings: int) -> list:
+    """Per grouping, the set of variables ('v', 'd') whose percentile columns are wanted: ``True`` = both
+    for every grouping, ``False`` = none, or a sequence with one entry per grouping (a bool or a
+    collection of variable names)."""
+    if isinstance(percentiles, (bool, np.bool_)) or percentiles is None:
+        return [{"v", "d"} if percentiles else set()] * n_groupings
+    wish = list(percentiles)
+    if len(wish) != n_groupings:
+        raise ValueError("percentiles: give one entry per grouping")
+    return [({"v", "d"} if w else set()) if isinstance(w, (bool, np.bool_)) else set(w) for w in wish]
+
+
 def summarise_groupings(speed, depth, area, codes, groupings, class_names, weight_unit: float, froude=None,
                         vorders=None, percentiles: bool = True, threads: int = 2) -> list:
     """:func:`summarise` for several groupings of the same elements at once, sharing the work.
 
     ``groupings``: list of (groups, n_groups) or :class:`Grouping`. Returns one ordered column dict
-    per grouping (columns as :func:`summarise`).
+    per grouping (columns as :func:`summarise`). ``percentiles``: True (every grouping), False, or one
+    entry per grouping: a bool or the variables wanted, e.g. ``("v",)`` for speed percentiles only (the
+    percentile columns of the other variable are then left out of that grouping's table).
     """
     groupings = [g if isinstance(g, Grouping) else Grouping(*g) for g in groupings]
     speed = np.asarray(speed)
@@ -371,7 +436,7 @@ def summarise_groupings(speed, depth, area, codes, groupings, class_names, weigh
                 x = np.where(fin, x - c, 0.0)
                 a = np.where(fin, area, 0.0)
             shifts.append(c)
-            yield a
+            yield None if a is area else a  # None: the same as the area sums (no second pass)
             ax = a * x
             yield ax
             ax *= x
@@ -386,16 +451,26 @@ def summarise_groupings(speed, depth, area, codes, groupings, class_names, weigh
     # --- percentiles ---------------------------------------------------------------------------
     w = area / float(weight_unit)
     pct = [dict() for _ in groupings]
-    if percentiles:
+    want = _percentile_wish(percentiles, len(groupings))
+    if any(want):
         pvars = [(var, vals) for var, vals, _ in variables[:2]]
-        if vorders is None or vorders[0] is None:
-            vorders = value_orders([vals for _, vals in pvars], threads=threads)
-        jobs = [(gi, var, vals, vo) for gi in range(len(groupings)) for (var, vals), vo in zip(pvars, vorders)]
+        jobs = [(gi, var, vals, vi) for gi in range(len(groupings)) for vi, (var, vals) in enumerate(pvars)
+                if var in want[gi]]
+        if bool(np.all(w == 1.0)):  # equal weights (a raster): selection per group, no value sort
 
-        def run(job):
-            gi, var, vals, vo = job
-            g = groupings[gi]
-            return grouped_weighted_percentiles(vals, w, g.groups, g.n_groups, PERCENTILES, vorder=vo)
+            def run(job):
+                gi, var, vals, _ = job
+                return grouped_unit_percentiles(vals, groupings[gi], PERCENTILES)
+        else:
+            if vorders is None or vorders[0] is None:
+                used = sorted({job[3] for job in jobs})
+                vo = value_orders([pvars[i][1] for i in used], threads=threads)
+                vorders = [vo[used.index(i)] if i in used else None for i in range(len(pvars))]
+
+            def run(job):
+                gi, var, vals, vi = job
+                g = groupings[gi]
+                return grouped_weighted_percentiles(vals, w, g.groups, g.n_groups, PERCENTILES, vorder=vorders[vi])
 
         results = _pool_map(run, jobs, threads if speed.size >= 200_000 else 1)
         for job, res in zip(jobs, results):
@@ -418,7 +493,7 @@ def summarise_groupings(speed, depth, area, codes, groupings, class_names, weigh
             if var == "fr":
                 cols["fr_mean"] = mean
                 continue
-            if percentiles:
+            if var in pct[gi]:
                 for j, lab in enumerate(PERCENTILE_LABELS):
                     cols[f"{var}_{lab}_{unit}"] = pct[gi][var][:, j]
             cols[f"{var}_mean_{unit}"] = mean

@@ -139,10 +139,25 @@ def sieve_grid(grid: np.ndarray, min_cells: int) -> np.ndarray:
     return out
 
 
-def _polygonize_window(labels: np.ndarray, transform):
-    """Polygons (shapely array) and their labels for the non-zero cells of a small label array."""
+def _to_world(polys, transform):
+    """Polygons in (column, row) grid coordinates -> world coordinates of the grid ``transform``
+    (north-up): x = x0 + col dx, y = y0 + row dy, one formula for every window."""
+    x0, dx, _, y0, _, dy = transform
+    scale = np.array([dx, dy])
+    origin = np.array([x0, y0])
+    return shapely.transform(polys, lambda xy: origin + xy * scale)
+
+
+def _polygonize_window(labels: np.ndarray, transform, r0: int = 0, c0: int = 0):
+    """Polygons (shapely array) and their labels for the non-zero cells of a small label array
+    whose first cell is (r0, c0) of a grid with the given geotransform (north-up); ``transform``
+    None: in grid coordinates (column, row; integers, so pieces of different windows join exactly)."""
     ds = gdal_array.OpenArray(labels)
-    ds.SetGeoTransform(transform)
+    if transform is None:
+        ds.SetGeoTransform((float(c0), 1.0, 0.0, float(r0), 0.0, 1.0))
+    else:
+        x0, dx, _, y0, _, dy = transform
+        ds.SetGeoTransform((x0 + c0 * dx, dx, 0.0, y0 + r0 * dy, 0.0, dy))
     band = ds.GetRasterBand(1)
     ods = ogr.GetDriverByName("Memory").CreateDataSource("patches")
     lyr = ods.CreateLayer("p", geom_type=ogr.wkbPolygon)
@@ -187,7 +202,6 @@ def raster_patches(analysis, min_area_m2: float = 0.0, progress=None, threads: i
     ends = np.cumsum(counts)
     starts = ends - counts
     rows_, cols_ = np.divmod(sup.index, sup.shape[1])
-    x0, dx, _, y0, _, dy = sup.transform
 
     def one(k):
         sel = order[starts[k]:ends[k]]
@@ -198,7 +212,7 @@ def raster_patches(analysis, min_area_m2: float = 0.0, progress=None, threads: i
         r0, c0 = int(r.min()), int(c.min())
         lab = np.zeros((int(r.max()) - r0 + 1, int(c.max()) - c0 + 1), dtype=np.uint8)
         lab[r - r0, c - c0] = codes[sel]
-        polys, labels = _polygonize_window(lab, (x0 + c0 * dx, dx, 0.0, y0 + r0 * dy, 0.0, dy))
+        polys, labels = _polygonize_window(lab, sup.transform, r0, c0)
         parts = _dissolve_parts(polys, labels)
         area = np.bincount(codes[sel], minlength=256) * cell
         return k, {code: (mp, float(area[code]), n) for code, (mp, n) in parts.items()}
@@ -394,8 +408,10 @@ def habitat_patches(analysis, min_area_m2: float = 0.0, progress=None, threads: 
 # Wet footprints of segments and zones (their polygons when the reach brings none)
 # ----------------------------------------------------------------------------------------------
 
-def _union_pieces(pieces, n):
-    """{(group, sub): MultiPolygon} -> list of n geometries (None where empty), coverage union."""
+def _union_pieces(pieces, n, merge=None):
+    """{(group, sub): MultiPolygon} -> list of n geometries (None where empty); pieces of one group
+    joined by ``merge`` (default: :func:`merge_faces`, coverage union first)."""
+    merge = merge or merge_faces
     out = [None] * n
     by = {}
     for (g, _), geom in pieces.items():
@@ -403,8 +419,19 @@ def _union_pieces(pieces, n):
     for g, geoms in by.items():
         if not 0 <= g < n:
             continue
-        out[g] = geoms[0] if len(geoms) == 1 else merge_faces(geoms)
+        out[g] = geoms[0] if len(geoms) == 1 else merge(geoms)
     return out
+
+
+def _grid_union(geoms):
+    """Union of polygonized pieces in grid coordinates as a valid MultiPolygon. Pieces of different
+    windows share edges but not their vertices (each window keeps only its own corners), which GEOS's
+    coverage union refuses; the general union is exact here (integer coordinates)."""
+    merged = shapely.union_all(np.asarray(geoms, dtype=object))
+    mp = merged if shapely.get_type_id(merged) == 6 else _polygonal(merged)
+    if not shapely.is_valid(mp):
+        mp = _polygonal(shapely.make_valid(mp))
+    return mp
 
 
 def wet_footprints(analysis, threads: int = 2, polygons=None):
@@ -423,23 +450,27 @@ def wet_footprints(analysis, threads: int = 2, polygons=None):
         ends = np.cumsum(counts)
         starts = ends - counts
         rows_, cols_ = np.divmod(sup.index, sup.shape[1])
-        x0, dx, _, y0, _, dy = sup.transform
+        label_type = np.uint8 if n_zone < 255 else np.uint16
 
-        def one(k):
+        def one(k):  # pieces in grid coordinates: joined exactly, turned into world coordinates last
             sel = order[starts[k]:ends[k]]
             if sel.size == 0:
                 return k, {}
             r, c = rows_[sel], cols_[sel]
             r0, c0 = int(r.min()), int(c.min())
-            lab = np.zeros((int(r.max()) - r0 + 1, int(c.max()) - c0 + 1), dtype=np.uint8)
-            lab[r - r0, c - c0] = (zone[sel] + 1).astype(np.uint8)
-            polys, labels = _polygonize_window(lab, (x0 + c0 * dx, dx, 0.0, y0 + r0 * dy, 0.0, dy))
+            lab = np.zeros((int(r.max()) - r0 + 1, int(c.max()) - c0 + 1), dtype=label_type)
+            lab[r - r0, c - c0] = (zone[sel] + 1).astype(label_type)
+            polys, labels = _polygonize_window(lab, None, r0, c0)
             return k, {z - 1: mp for z, (mp, _) in _dissolve_parts(polys, labels).items()}
 
         with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
             for k, res in pool.map(one, [k for k in range(n_seg) if counts[k] > 0]):
                 for z, mp in res.items():
                     pieces[(k, z)] = mp
+        seg_geoms = _union_pieces(pieces, n_seg, _grid_union)
+        zone_geoms = _union_pieces({(z, k): g for (k, z), g in pieces.items()}, n_zone, _grid_union)
+        world = [None if g is None else _to_world(g, sup.transform) for g in seg_geoms + zone_geoms]
+        return world[:n_seg], world[n_seg:]
     elif isinstance(sup, MeshSupport):
         polys = face_polygons(sup) if polygons is None else polygons
         key = seg[inside].astype(np.int64) * 65536 + zone[inside]

@@ -2,7 +2,8 @@
 
 ``build_report(analysis, inputs, notes)`` returns a ``gis/report.Report`` (write it with
 ``.write(path)``). ``zone_rows(analysis)`` and ``class_legend(scheme, ...)`` are reusable pieces for
-other habitat reports (compare, flow-habitat).
+other habitat reports (compare, flow-habitat). Its charts are written as SVG directly
+(``gis/svgcharts.py``, a few milliseconds each).
 """
 
 from __future__ import annotations
@@ -10,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..core import stats
-from . import charts
+from . import svgcharts
 from .report import Report
 
 KEY_COLUMNS = ("wet_area_m2", "v_p10_ms", "v_p25_ms", "v_p50_ms", "v_p75_ms", "v_p90_ms", "v_mean_ms", "v_cv",
@@ -67,7 +68,7 @@ def build_report(analysis, inputs, notes=(), title: str = "Habitat map of one ru
     rep.table(zone_rows(analysis), caption="Whole reach and zones", csv_name="zones")
     zf = analysis.class_fractions("zone")
     rf = analysis.class_fractions("reach")
-    fig = charts.class_share_bars(list(analysis.zone_stats["zone"]) + ["whole reach"], np.vstack([zf, rf]),
+    fig = svgcharts.class_share_bars(list(analysis.zone_stats["zone"]) + ["whole reach"], np.vstack([zf, rf]),
                                   scheme, title="Class shares per zone")
     rep.figure(fig, caption="Share of each class in the wet area of every zone and the whole reach.")
     if analysis.profile is not None:
@@ -76,11 +77,11 @@ def build_report(analysis, inputs, notes=(), title: str = "Habitat map of one ru
         rep.section("Along the reach", f"Speed percentiles in {width:g} m chainage bins (area-weighted). The "
                                        "dark band holds the middle half of the wet area, the light band 80 %; "
                                        "dashed lines are the class thresholds.")
-        rep.figure(charts.speed_profile(p, scheme, reach.zone_edges, reach.zone_names,
+        rep.figure(svgcharts.speed_profile(p, scheme, reach.zone_edges, reach.zone_names,
                                         title="Depth-averaged speed along the reach", origin=origin),
                    caption=f"Speed percentile bands along chainage (km from the {origin} end), zones marked.")
     sf = analysis.class_fractions("segment")
-    rep.figure(charts.class_share_profile(reach.segment_edges, sf, scheme, reach.zone_edges, reach.zone_names,
+    rep.figure(svgcharts.class_share_profile(reach.segment_edges, sf, scheme, reach.zone_edges, reach.zone_names,
                                           title="Class shares per segment", origin=origin),
                caption="Share of each class in the wet area of every segment along the reach.")
     seg = analysis.segment_stats

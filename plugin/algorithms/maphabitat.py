@@ -18,7 +18,7 @@ from qgis.core import (
 from ..core import habitat
 from ..core.field import MeshSupport
 from ..core.reach import locate_field
-from ..gis import geotiff, habitatstyles, memory, outputs, patches, reachinput, runinput, schemeinput
+from ..gis import classraster, habitatstyles, memory, outputs, patches, reachinput, runinput, runprefetch, schemeinput
 from ..gis.habitatreport import build_report
 from .base import ChannelHabitatAlgorithm
 
@@ -116,25 +116,50 @@ by coverage union. The CRS must be projected, in metres.</p>
         self.addOutput(QgsProcessingOutputNumber("WET_AREA_M2", "Wet area inside the reach (m2)"))
 
     def compute(self, parameters, context, feedback):
-        # --- read ---------------------------------------------------------------------------------
-        fld, src = runinput.read_run_parameters(self, parameters, context, feedback,
-                                                progress=self.progress(feedback, 0.0, 0.25))
-        memory.release()  # the readers' buffers and GDAL's block cache are free again: hand them back
-        habitat.check_metric_crs(fld.crs_wkt, src.params["mesh_crs"] if src.is_mesh else src.params["depth"])
+        # --- read: the rasters in the background while the reach and the scheme are read -----------
+        run = runprefetch.start_run_parameters(self, parameters, context, feedback,
+                                               progress=self.progress(feedback, 0.0, 0.25))
+        if not run.crs_wkt:
+            run.result()  # says that the run has no CRS
+        habitat.check_metric_crs(run.crs_wkt, run.src.params["mesh_crs"] if run.src.is_mesh else
+                                 run.src.params["depth"])
         line = self.parameterAsSource(parameters, reachinput.CENTRELINE, context)
-        crs_note = habitat.reprojection_note(reachinput.crs_wkt_of(line.sourceCrs()) if line else "", fld.crs_wkt)
-        reach = reachinput.read_reach_parameters(self, parameters, context, feedback, target_crs_wkt=fld.crs_wkt)
-        reach, _ = habitat.reach_in_crs(reach, fld.crs_wkt)  # no-op when reachinput already transformed it
+        crs_note = habitat.reprojection_note(reachinput.crs_wkt_of(line.sourceCrs()) if line else "", run.crs_wkt)
+        reach = reachinput.read_reach_parameters(self, parameters, context, feedback, target_crs_wkt=run.crs_wkt)
+        reach, _ = habitat.reach_in_crs(reach, run.crs_wkt)  # no-op when reachinput already transformed it
         if crs_note:
             feedback.pushWarning(crs_note)
         scheme = schemeinput.read_scheme_parameters(self, parameters, context, feedback)
         min_area = self.parameterAsDouble(parameters, MIN_PATCH_AREA, context)
+        progress = self.progress(feedback, 0.0, 0.25)
+        progress(0.0, "reading the run")
+        fld, src = run.result()
+        memory.release()  # the readers' buffers and GDAL's block cache are free again: hand them back
+        run_label = fld.name or src.label
+        is_mesh = isinstance(fld.support, MeshSupport)
+        codes = scheme.classify(fld.depth, fld.speed)
+        classes = None  # the CLASSES GeoTIFF is encoded in the background, moved into place when written
+        classes_path = None if is_mesh else self.parameterAsOutputLayer(parameters, "CLASSES", context)
+        if classes_path:
+            classes = classraster.start_class_raster(classes_path, fld, codes, scheme, run_label)
+            for p in classes.temporary_paths:
+                self.will_write(p)
+        try:
+            return self._compute(parameters, context, feedback, fld, src, reach, scheme, codes, min_area, crs_note,
+                                 run_label, classes)
+        except BaseException:
+            if classes is not None:
+                classes.discard()
+            raise
 
+    def _compute(self, parameters, context, feedback, fld, src, reach, scheme, codes, min_area, crs_note,
+                 run_label, classes):
         # --- compute ------------------------------------------------------------------------------
         progress = self.progress(feedback, 0.25, 0.9)
         progress(0.0, "locating the run along the reach")
         location = locate_field(reach, fld)
-        analysis = habitat.classify_run(fld, reach, scheme, location=location, progress=progress.sub(0.2, 0.3))
+        analysis = habitat.classify_run(fld, reach, scheme, location=location, progress=progress.sub(0.2, 0.3),
+                                        codes=codes)
         memory.release()
         is_mesh = isinstance(fld.support, MeshSupport)
         polys = patches.face_polygons(fld.support) if is_mesh else None
@@ -145,7 +170,6 @@ by coverage union. The CRS must be projected, in metres.</p>
         habitat.summarise_run(analysis, progress=progress.sub(0.3, 0.6))
         notes = list(fld.notes) + ([crs_note] if crs_note else []) + list(analysis.notes)
         notes += habitat.geometry_notes(reach)
-        run_label = fld.name or src.label
         seg_cols = {"run": [run_label] * reach.n_segments, **analysis.segment_stats}
         zone_cols = {"run": [run_label] * reach.n_zones, **analysis.zone_stats}
         report_path = self.parameterAsFileOutput(parameters, "REPORT", context)
@@ -176,22 +200,16 @@ by coverage union. The CRS must be projected, in metres.</p>
                     self, parameters, context, "MESH_CLASSES", face_cols, polys, crs, QgsWkbTypes.Polygon,
                     progress=progress.sub(0.0, 0.3))
                 self._style(context, results["MESH_CLASSES"], habitatstyles.class_styler(scheme), "Habitat classes")
-        else:
-            path = self.parameterAsOutputLayer(parameters, "CLASSES", context)
-            if path:
-                self.will_write(path)
-                qml = os.path.splitext(path)[0] + ".qml"
-                self.will_write(qml)
-                geotiff.write(path, patches.class_grid(analysis), fld.support.transform, fld.crs_wkt, nodata=0,
-                              colours={i + 1: c for i, c in enumerate(scheme.colours)},
-                              description=f"habitat class ({scheme.name})",
-                              metadata={"scheme": scheme.name, "classes": "; ".join(
-                                  f"{i + 1} {c.name}: {c.describe()}" for i, c in enumerate(scheme.classes)),
-                                  "run": run_label})
-                habitatstyles.save_raster_style(path, scheme)
-                results["CLASSES"] = path
-                outputs.style_on_load(context, path, func=habitatstyles.raster_styler(scheme),
-                                      layer_name="Habitat classes")
+        elif classes is not None:
+            path = classes.path
+            self.will_write(path)
+            qml = os.path.splitext(path)[0] + ".qml"
+            self.will_write(qml)
+            classes.finish()
+            habitatstyles.save_raster_style(path, scheme)
+            results["CLASSES"] = path
+            outputs.style_on_load(context, path, func=habitatstyles.raster_styler(scheme),
+                                  layer_name="Habitat classes")
         progress(0.3)
         results["PATCHES"] = outputs.write_features(self, parameters, context, "PATCHES", ptc.columns,
                                                     ptc.geometries, crs, QgsWkbTypes.MultiPolygon)

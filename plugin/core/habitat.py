@@ -153,9 +153,10 @@ def analyse_run(fld: HydraulicField, reach: Reach, scheme: ClassScheme, location
 
 
 def classify_run(fld: HydraulicField, reach: Reach, scheme: ClassScheme, location=None, progress=None,
-                 check_crs: bool = True) -> RunAnalysis:
+                 check_crs: bool = True, codes=None) -> RunAnalysis:
     """Locate, classify and assign segments and zones (no statistics yet: the tables are empty until
-    :func:`summarise_run`). Lets patches be drawn while the statistics are computed."""
+    :func:`summarise_run`). Lets patches be drawn while the statistics are computed. ``codes``: the
+    elements' classes when already known (``scheme.classify(fld.depth, fld.speed)``)."""
     progress = as_progress(progress)
     if check_crs:
         check_metric_crs(fld.crs_wkt)
@@ -180,7 +181,7 @@ def classify_run(fld: HydraulicField, reach: Reach, scheme: ClassScheme, locatio
         seg = np.where(outside, -1, seg).astype(np.int32)
         zone = np.where(outside, -1, zone).astype(np.int32)
     progress(0.8, "classifying")
-    codes = scheme.classify(fld.depth, fld.speed)
+    codes = scheme.classify(fld.depth, fld.speed) if codes is None else np.asarray(codes, dtype=np.uint8)
     fr = fld.froude()
     notes = []
     outside_area = float(fld.area[outside].sum()) if n_out else 0.0

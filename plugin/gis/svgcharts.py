@@ -1,8 +1,8 @@
 """Report charts written directly as SVG text: no plotting library, a few milliseconds per chart.
 
-The same house style as ``gis/charts.py`` (its colours, class colours from the scheme, chainage in km
-increasing to the right, units on every axis, no top/right spines, a faint grid), drawn with a small
-SVG writer of our own. The charts of one habitat run:
+The same house style as ``gis/charts.py`` (``gis/chartstyle.py``: its colours, class colours from the
+scheme, chainage in km increasing to the right, units on every axis, no top/right spines, a faint grid),
+drawn with a small SVG writer of our own. The charts of one habitat run:
 
     speed_profile(profile, scheme, zone_edges, zone_names)   percentile bands of depth-averaged speed
                                                              along chainage, class thresholds marked
@@ -24,7 +24,7 @@ import uuid
 
 import numpy as np
 
-from .charts import (
+from .chartstyle import (
     BAND_INNER,
     BAND_OUTER,
     GRID,

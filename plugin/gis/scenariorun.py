@@ -28,8 +28,10 @@ What it does, in order:
    reference machine). Threads, not processes: reading a compressed raster (GDAL) and the numpy
    work on the wet cells release the interpreter lock, so two threads use two cores; threads
    share one chainage cache and pass nothing through pickling; and a QGIS process is neither
-   safely forked (its rendering threads may hold GDAL's locks) nor re-spawned (``sys.executable``
-   is QGIS itself on some platforms). Memory stays at about ``workers`` runs at a time.
+   safely forked (a thread may hold one of GDAL's locks at the fork: a fork-based pool started after
+   GDAL had read rasters from threads deadlocked in its children while this was developed) nor
+   re-spawned (``sys.executable`` is QGIS itself on some platforms). Memory stays at about
+   ``workers`` runs at a time (plus GDAL's shared block cache).
 4. Per row: :func:`gis.runs.read_run` (speed raster only when the row also lists u and v and
    vectors are not needed); ``core.reach.locate_field`` for the chainage, which caches per grid or
    mesh geometry. Calls are made one at a time (the cache is shared), so the second run of a grid

@@ -91,7 +91,7 @@ def run(demo):
         "CURVES": str(curves),
         "REGIME": "weir",
         "FLOWS": str(flows),
-        "TARGETS": TARGETS,
+        "TARGET_STATEMENTS": TARGETS,
         "BLOOM_CLASSES": "very slow",
         "BLOOM_SHARE": BLOOM_SHARE,
         "BLOOM_MIN_DAYS": 5,

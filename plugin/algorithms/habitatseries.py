@@ -47,7 +47,7 @@ in the row's unit.</li>
 <li><b>ALTERNATIVES</b> — which further columns are alternative series (comma-separated; empty = all).</li>
 <li><b>ZONES</b> — the units reported in DAILY and tested for bloom risk: zone names, <code>reach</code>,
 <code>segment N</code> (comma-separated; empty = the reach and every zone).</li>
-<li><b>TARGETS</b> — statements as in flowhabitat, one per line or separated by ';':
+<li><b>TARGET_STATEMENTS</b> — statements as in flowhabitat, one per line or separated by ';':
 <code>lower: moderate+fast &gt;= 50%</code>. They become t1, t2, ... in the outputs.</li>
 <li><b>BLOOM_CLASSES</b> — the class(es) counted as stratification-prone very slow water (default
 <code>very slow</code>; several joined by '+'; empty = no bloom-risk analysis).</li>
@@ -121,7 +121,7 @@ class HabitatSeries(ChannelHabitatAlgorithm):
             "ZONES", "Units to report: zone names, 'reach', 'segment N' (empty: reach and every zone)",
             optional=True))
         self.addParameter(QgsProcessingParameterString(
-            "TARGETS", "Targets, e.g. 'lower: moderate+fast >= 50%' (one per line or ';')", multiLine=True,
+            "TARGET_STATEMENTS", "Targets, e.g. 'lower: moderate+fast >= 50%' (one per line or ';')", multiLine=True,
             optional=True))
         self.addParameter(QgsProcessingParameterString(
             "BLOOM_CLASSES", "Bloom risk: very slow class(es), joined by '+' (empty: no bloom analysis)",
@@ -160,8 +160,8 @@ class HabitatSeries(ChannelHabitatAlgorithm):
         units = view.resolve_units(self.parameterAsString(parameters, "ZONES", context))
         zone_names = [u.unit for u in curves.units if u.scope == "zone"]
         n_segments = sum(1 for u in curves.units if u.scope == "segment")
-        targets = parse_targets(self.parameterAsString(parameters, "TARGETS", context), zone_names,
-                                curves.class_names, n_segments)
+        targets = parse_targets(self.parameterAsString(parameters, "TARGET_STATEMENTS", context), zone_names,
+                                curves.class_names, n_segments, parameter="TARGET_STATEMENTS")
         criteria = core.target_criteria(targets)
         bloom_text = self.parameterAsString(parameters, "BLOOM_CLASSES", context).strip()
         bloom_share = self.parameterAsDouble(parameters, "BLOOM_SHARE", context)

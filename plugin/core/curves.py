@@ -493,7 +493,7 @@ class FlowHabitatCurves:
         """The regime's run discharges, ML/d, increasing."""
         return self.regime(regime).q_mld.copy()
 
-    def unit_index(self, unit, parameter: str = "TARGETS") -> int:
+    def unit_index(self, unit, parameter: str = "TARGET_STATEMENTS") -> int:
         """Index of a scope unit: an int, a ScopeUnit, or its key ('reach', zone name, 'segment N').
         An unknown name raises ChannelHabitatError naming ``parameter``."""
         if isinstance(unit, (int, np.integer)):
@@ -507,7 +507,7 @@ class FlowHabitatCurves:
                                       "or 'segment N')", parameter)
         return i
 
-    def class_indices(self, classes, parameter: str = "TARGETS") -> list[int]:
+    def class_indices(self, classes, parameter: str = "TARGET_STATEMENTS") -> list[int]:
         """Indices of class names (a list, or one text joined by '+'; case and spaces/underscores
         ignored); None = all classes. An unknown name raises ChannelHabitatError naming ``parameter``."""
         if classes is None:
@@ -590,7 +590,7 @@ class Target:
 
 
 def parse_targets(text: str, zone_names, class_names, n_segments: int | None = None,
-                  parameter: str = "TARGETS") -> list[Target]:
+                  parameter: str = "TARGET_STATEMENTS") -> list[Target]:
     """Parse target statements (see the module docstring). Empty text gives no targets.
 
     Zone and class names match ignoring case, and spaces and underscores alike ('very_slow' is

@@ -213,7 +213,7 @@ def test_parse_targets():
 def test_parse_targets_errors(text, expect):
     with pytest.raises(ChannelHabitatError) as exc:
         parse_targets(text, ["upper", "lower"], CLASSES, n_segments=3)
-    assert expect in str(exc.value) and exc.value.parameter == "TARGETS"
+    assert expect in str(exc.value) and exc.value.parameter == "TARGET_STATEMENTS"
 
 
 def _curve(pcts, ladder=LADDER, regime="weir"):

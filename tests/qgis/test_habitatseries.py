@@ -57,7 +57,7 @@ def _params(tmp_path, **over):
         "CURVES": _write_curves(tmp_path / "curves.csv"),
         "REGIME": "weir",
         "FLOWS": _write_flows(tmp_path / "flows.csv", Q, {"more_water": Q + 1000.0}),
-        "TARGETS": "lower: fast >= 40%; reach: very slow + slow < 50%",
+        "TARGET_STATEMENTS": "lower: fast >= 40%; reach: very slow + slow < 50%",
         "BLOOM_CLASSES": "very slow",
         "BLOOM_SHARE": 50.0,
         "BLOOM_MIN_DAYS": 5,
@@ -177,7 +177,7 @@ def test_habitatseries_bad_parameters(run_alg, tmp_path):
         run_alg("habitatseries", _params(tmp_path, DELIVERY="late: pulse start=2023-09-15 duration=5"))
     with pytest.raises(QgsProcessingException, match="BLOOM_CLASSES: no class 'pool'"):
         run_alg("habitatseries", _params(tmp_path, BLOOM_CLASSES="pool"))
-    with pytest.raises(QgsProcessingException, match="TARGETS"):
-        run_alg("habitatseries", _params(tmp_path, TARGETS="middle: fast >= 10%"))
+    with pytest.raises(QgsProcessingException, match="TARGET_STATEMENTS"):
+        run_alg("habitatseries", _params(tmp_path, TARGET_STATEMENTS="middle: fast >= 10%"))
     with pytest.raises(QgsProcessingException, match="ZONES: no unit 'middle'"):
         run_alg("habitatseries", _params(tmp_path, ZONES="middle"))

@@ -120,46 +120,50 @@ def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, 
         vel.pop("v", None)
     rows, cols = shape
     dband = dds.GetRasterBand(1)
-    dnd = dband.GetNoDataValue()
-    bands = {k: ds.GetRasterBand(1) for k, ds in vel.items()}
-    nds = {k: b.GetNoDataValue() for k, b in bands.items()}
-    idx_parts, d_parts = [], []
-    val_parts = {k: [] for k in bands}
-    raw_min = np.inf
-    r0, r1, c0, c1 = 0, rows, 0, cols
-    if bbox is not None:  # (xmin, ymin, xmax, ymax) restricts the read window
-        x0, dx, _, y0, _, dy = gt
-        c0 = max(int(np.floor((bbox[0] - x0) / dx)), 0)
-        c1 = min(int(np.ceil((bbox[2] - x0) / dx)), cols)
-        r0 = max(int(np.floor((bbox[3] - y0) / dy)), 0)
-        r1 = min(int(np.ceil((bbox[1] - y0) / dy)), rows)
-    ncols = max(c1 - c0, 0)
-    strip_rows = max(256, (STRIP_CELLS // max(ncols, 1)) // 256 * 256)
-    for start in range(r0, r1, strip_rows):
-        progress((start - r0) / max(r1 - r0, 1), "reading rasters")
-        n = min(strip_rows, r1 - start)
-        d = dband.ReadAsArray(c0, start, ncols, n)
-        d = d.astype(np.float32, copy=False)
-        valid = np.isfinite(d)
-        if dnd is not None and np.isfinite(dnd):
-            valid &= d != dnd
-        if valid.any():
-            raw_min = min(raw_min, float(d[valid].min()))
-        wet = valid & (d >= wet_depth_m)
-        flat = np.flatnonzero(wet)
-        if flat.size == 0:
-            continue
-        rr, cc = np.divmod(flat, ncols)
-        idx_parts.append((rr + start) * cols + (cc + c0))
-        d_parts.append(d.ravel()[flat])
-        del d, valid, wet
-        for k, b in bands.items():
-            a = b.ReadAsArray(c0, start, ncols, n).astype(np.float32, copy=False).ravel()[flat]
-            nd = nds[k]
-            if nd is not None and np.isfinite(nd):
-                a = np.where(a == nd, np.nan, a)
-            val_parts[k].append(a)
-    del dband, bands
+    bands, b = {}, None
+    try:
+        dnd = dband.GetNoDataValue()
+        bands = {k: ds.GetRasterBand(1) for k, ds in vel.items()}
+        nds = {k: b.GetNoDataValue() for k, b in bands.items()}
+        idx_parts, d_parts = [], []
+        val_parts = {k: [] for k in bands}
+        raw_min = np.inf
+        r0, r1, c0, c1 = 0, rows, 0, cols
+        if bbox is not None:  # (xmin, ymin, xmax, ymax) restricts the read window
+            x0, dx, _, y0, _, dy = gt
+            c0 = max(int(np.floor((bbox[0] - x0) / dx)), 0)
+            c1 = min(int(np.ceil((bbox[2] - x0) / dx)), cols)
+            r0 = max(int(np.floor((bbox[3] - y0) / dy)), 0)
+            r1 = min(int(np.ceil((bbox[1] - y0) / dy)), rows)
+        ncols = max(c1 - c0, 0)
+        strip_rows = max(256, (STRIP_CELLS // max(ncols, 1)) // 256 * 256)
+        for start in range(r0, r1, strip_rows):
+            progress((start - r0) / max(r1 - r0, 1), "reading rasters")
+            n = min(strip_rows, r1 - start)
+            d = dband.ReadAsArray(c0, start, ncols, n)
+            d = d.astype(np.float32, copy=False)
+            valid = np.isfinite(d)
+            if dnd is not None and np.isfinite(dnd):
+                valid &= d != dnd
+            if valid.any():
+                raw_min = min(raw_min, float(d[valid].min()))
+            wet = valid & (d >= wet_depth_m)
+            flat = np.flatnonzero(wet)
+            if flat.size == 0:
+                continue
+            rr, cc = np.divmod(flat, ncols)
+            idx_parts.append((rr + start) * cols + (cc + c0))
+            d_parts.append(d.ravel()[flat])
+            del d, valid, wet
+            for k, b in bands.items():
+                a = b.ReadAsArray(c0, start, ncols, n).astype(np.float32, copy=False).ravel()[flat]
+                nd = nds[k]
+                if nd is not None and np.isfinite(nd):
+                    a = np.where(a == nd, np.nan, a)
+                val_parts[k].append(a)
+    finally:
+        # GDAL 3.6 bands do not keep their dataset alive: free them first, also on an error.
+        del dband, bands, b
     index = np.concatenate(idx_parts) if idx_parts else np.zeros(0, np.int64)
     dep = np.concatenate(d_parts) if d_parts else np.zeros(0, np.float32)
     vals = {k: (np.concatenate(v) if v else np.zeros(0, np.float32)) for k, v in val_parts.items()}

@@ -175,58 +175,95 @@ def _polygonize_window(labels: np.ndarray, transform, r0: int = 0, c0: int = 0):
 
 def raster_patches(analysis, min_area_m2: float = 0.0, progress=None, threads: int = 2) -> Patches:
     """Patches of a raster run: polygons per (segment, class), sieved to ``min_area_m2`` first."""
+    return _raster_pass(analysis, min_area_m2, progress, threads, patches=True, footprints=False)[0]
+
+
+def _sieved_codes(analysis, min_area_m2: float, progress):
+    """(codes for PATCHES, notes): the classes sieved to ``min_area_m2`` (GDAL SieveFilter)."""
+    sup = analysis.field.support
+    cell = sup.cell_area
+    codes = analysis.codes
+    min_cells = int(np.ceil(min_area_m2 / cell - 1e-9)) if min_area_m2 > 0 else 0
+    if min_cells <= 1:
+        return codes, []
+    progress(0.0, f"removing patches smaller than {min_area_m2:g} m2 ({min_cells} cells)")
+    sieved = sieve_grid(class_grid(analysis), min_cells)
+    new = sieved.ravel()[sup.index]
+    changed = int(np.count_nonzero(new != codes))
+    progress.check()
+    return new, [f"Patches smaller than {min_area_m2:g} m2 ({min_cells} cells) were merged into their "
+                 f"largest neighbour in PATCHES ({changed} cells, {changed * cell:,.0f} m2, changed class); "
+                 "the statistics use the unsieved classes."]
+
+
+def _raster_pass(analysis, min_area_m2: float = 0.0, progress=None, threads: int = 2, patches: bool = True,
+                 footprints: bool = True):
+    """(Patches or None, (segment geometries, zone geometries) or None) of a raster run in one pass over
+    the segments: every segment's cells are cut into a small window once, and polygonized there per
+    class (patches) and per zone (the wet footprint pieces, in grid coordinates), on ``threads`` threads
+    (GDAL and GEOS release the GIL); footprint pieces are joined per segment and per zone at the end."""
     progress = as_progress(progress)
     fld = analysis.field
     sup = fld.support
     if not isinstance(sup, GridSupport):
-        raise TypeError("raster_patches needs a raster run")
+        raise TypeError("raster patches need a raster run")
     notes = []
     cell = sup.cell_area
     codes = analysis.codes
-    min_cells = int(np.ceil(min_area_m2 / cell - 1e-9)) if min_area_m2 > 0 else 0
-    if min_cells > 1:
-        progress(0.0, f"removing patches smaller than {min_area_m2:g} m2 ({min_cells} cells)")
-        sieved = sieve_grid(class_grid(analysis), min_cells)
-        new = sieved.ravel()[sup.index]
-        changed = int(np.count_nonzero(new != codes))
-        notes.append(f"Patches smaller than {min_area_m2:g} m2 ({min_cells} cells) were merged into their "
-                     f"largest neighbour in PATCHES ({changed} cells, {changed * cell:,.0f} m2, changed class); "
-                     "the statistics use the unsieved classes.")
-        codes = new
-        progress.check()
-    seg = analysis.segment
-    n_seg = analysis.reach.n_segments
+    if patches:
+        codes, notes = _sieved_codes(analysis, min_area_m2, progress)
+    seg, zone = analysis.segment, analysis.zone
+    n_seg, n_zone = analysis.reach.n_segments, analysis.reach.n_zones
     order = np.argsort(np.where(seg >= 0, seg, n_seg).astype(np.int16 if n_seg < 32767 else np.int32),
                        kind="stable")
     counts = np.bincount(seg[seg >= 0], minlength=n_seg)
     ends = np.cumsum(counts)
     starts = ends - counts
     rows_, cols_ = np.divmod(sup.index, sup.shape[1])
+    zone_type = np.uint8 if n_zone < 255 else np.uint16
 
-    def one(k):
-        sel = order[starts[k]:ends[k]]
-        sel = sel[codes[sel] > 0]
-        if sel.size == 0:
-            return k, {}
+    def window(sel, values, dtype):
         r, c = rows_[sel], cols_[sel]
         r0, c0 = int(r.min()), int(c.min())
-        lab = np.zeros((int(r.max()) - r0 + 1, int(c.max()) - c0 + 1), dtype=np.uint8)
-        lab[r - r0, c - c0] = codes[sel]
-        polys, labels = _polygonize_window(lab, sup.transform, r0, c0)
-        parts = _dissolve_parts(polys, labels)
-        area = np.bincount(codes[sel], minlength=256) * cell
-        return k, {code: (mp, float(area[code]), n) for code, (mp, n) in parts.items()}
+        lab = np.zeros((int(r.max()) - r0 + 1, int(c.max()) - c0 + 1), dtype=dtype)
+        lab[r - r0, c - c0] = values
+        return lab, r0, c0
 
-    rows = []
+    def one(k):
+        cells = order[starts[k]:ends[k]]
+        res_p, res_f = {}, {}
+        if patches:
+            sel = cells[codes[cells] > 0]
+            if sel.size:
+                lab, r0, c0 = window(sel, codes[sel], np.uint8)
+                polys, labels = _polygonize_window(lab, sup.transform, r0, c0)
+                area = np.bincount(codes[sel], minlength=256) * cell
+                res_p = {code: (mp, float(area[code]), n) for code, (mp, n) in _dissolve_parts(polys, labels).items()}
+        if footprints:  # pieces in grid coordinates: joined exactly, turned into world coordinates last
+            lab, r0, c0 = window(cells, (zone[cells] + 1).astype(zone_type), zone_type)
+            polys, labels = _polygonize_window(lab, None, r0, c0)
+            res_f = {z - 1: mp for z, (mp, _) in _dissolve_parts(polys, labels).items()}
+        return k, res_p, res_f
+
+    rows, pieces = [], {}
     todo = [k for k in range(n_seg) if counts[k] > 0]
     done = 0
     with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
-        for k, res in pool.map(one, todo):
-            for code, (mp, area, n) in res.items():
+        for k, res_p, res_f in pool.map(one, todo):
+            for code, (mp, area, n) in res_p.items():
                 rows.append((k, code, mp, area, n))
+            for z, mp in res_f.items():
+                pieces[(k, z)] = mp
             done += 1
             progress(0.2 + 0.8 * done / max(len(todo), 1), "polygonizing habitat patches")
-    return _assemble(analysis, rows, notes)
+        fp = None
+        if footprints:
+            seg_geoms = _union_pieces(pieces, n_seg, _grid_union, pool)
+            zone_geoms = _union_pieces({(z, k): g for (k, z), g in pieces.items()}, n_zone, _grid_union, pool)
+            world = list(pool.map(lambda g: None if g is None else _to_world(g, sup.transform),
+                                  seg_geoms + zone_geoms))
+            fp = (world[:n_seg], world[n_seg:])
+    return (_assemble(analysis, rows, notes) if patches else None), fp
 
 
 # ----------------------------------------------------------------------------------------------
@@ -381,6 +418,8 @@ def start_patch_job(analysis, min_area_m2: float = 0.0, polygons=None, footprint
     stop = Progress(None, getattr(progress, "_cancelled", None)) if progress is not None else None
 
     def job():
+        if isinstance(analysis.field.support, GridSupport):  # one pass over the segment windows
+            return _raster_pass(analysis, min_area_m2, stop, threads, patches=True, footprints=footprints)
         ptc = habitat_patches(analysis, min_area_m2, stop, threads, polygons)
         if stop is not None:
             stop.check()
@@ -408,18 +447,25 @@ def habitat_patches(analysis, min_area_m2: float = 0.0, progress=None, threads: 
 # Wet footprints of segments and zones (their polygons when the reach brings none)
 # ----------------------------------------------------------------------------------------------
 
-def _union_pieces(pieces, n, merge=None):
+def _union_pieces(pieces, n, merge=None, pool=None):
     """{(group, sub): MultiPolygon} -> list of n geometries (None where empty); pieces of one group
-    joined by ``merge`` (default: :func:`merge_faces`, coverage union first)."""
+    joined by ``merge`` (default: :func:`merge_faces`, coverage union first), on ``pool`` if given."""
     merge = merge or merge_faces
     out = [None] * n
     by = {}
     for (g, _), geom in pieces.items():
         by.setdefault(g, []).append(geom)
+    todo = []
     for g, geoms in by.items():
         if not 0 <= g < n:
             continue
-        out[g] = geoms[0] if len(geoms) == 1 else merge(geoms)
+        if len(geoms) == 1:
+            out[g] = geoms[0]
+        else:
+            todo.append((g, geoms))
+    merged = pool.map(merge, [geoms for _, geoms in todo]) if pool is not None else map(merge, [t[1] for t in todo])
+    for (g, _), m in zip(todo, merged):
+        out[g] = m
     return out
 
 
@@ -439,39 +485,14 @@ def wet_footprints(analysis, threads: int = 2, polygons=None):
     MultiPolygons (None where dry), from pieces per (segment, zone) -- rasters by windowed
     polygonizing, meshes by coverage union of faces."""
     fld = analysis.field
+    sup = fld.support
+    if isinstance(sup, GridSupport):
+        return _raster_pass(analysis, threads=threads, patches=False, footprints=True)[1]
     seg, zone = analysis.segment, analysis.zone
     n_seg, n_zone = analysis.reach.n_segments, analysis.reach.n_zones
     inside = np.flatnonzero(seg >= 0)
     pieces = {}
-    sup = fld.support
-    if isinstance(sup, GridSupport):
-        order = inside[np.argsort(seg[inside], kind="stable")]
-        counts = np.bincount(seg[inside], minlength=n_seg)
-        ends = np.cumsum(counts)
-        starts = ends - counts
-        rows_, cols_ = np.divmod(sup.index, sup.shape[1])
-        label_type = np.uint8 if n_zone < 255 else np.uint16
-
-        def one(k):  # pieces in grid coordinates: joined exactly, turned into world coordinates last
-            sel = order[starts[k]:ends[k]]
-            if sel.size == 0:
-                return k, {}
-            r, c = rows_[sel], cols_[sel]
-            r0, c0 = int(r.min()), int(c.min())
-            lab = np.zeros((int(r.max()) - r0 + 1, int(c.max()) - c0 + 1), dtype=label_type)
-            lab[r - r0, c - c0] = (zone[sel] + 1).astype(label_type)
-            polys, labels = _polygonize_window(lab, None, r0, c0)
-            return k, {z - 1: mp for z, (mp, _) in _dissolve_parts(polys, labels).items()}
-
-        with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
-            for k, res in pool.map(one, [k for k in range(n_seg) if counts[k] > 0]):
-                for z, mp in res.items():
-                    pieces[(k, z)] = mp
-        seg_geoms = _union_pieces(pieces, n_seg, _grid_union)
-        zone_geoms = _union_pieces({(z, k): g for (k, z), g in pieces.items()}, n_zone, _grid_union)
-        world = [None if g is None else _to_world(g, sup.transform) for g in seg_geoms + zone_geoms]
-        return world[:n_seg], world[n_seg:]
-    elif isinstance(sup, MeshSupport):
+    if isinstance(sup, MeshSupport):
         polys = face_polygons(sup) if polygons is None else polygons
         key = seg[inside].astype(np.int64) * 65536 + zone[inside]
         order = np.argsort(key, kind="stable")

@@ -194,9 +194,8 @@ def grouped_unit_percentiles(values, grouping, q) -> np.ndarray:
     values = np.asarray(values)
     q = _check_q(q)
     g = grouping
-    out = np.full((g.n_groups, len(q)), np.nan)
     if values.size == 0 or g.n_groups == 0:
-        return out
+        return np.full((g.n_groups, len(q)), np.nan)
     finite = np.isfinite(values)
     if finite.all():
         perm, counts = g.perm, g.counts
@@ -204,9 +203,16 @@ def grouped_unit_percentiles(values, grouping, q) -> np.ndarray:
         key = group_keys(g.groups, g.n_groups, finite)
         counts = np.bincount(key, minlength=g.n_groups + 1)[: g.n_groups]
         perm = np.argsort(key, kind="stable")[: int(counts.sum())]
-    gathered = values[perm]  # a copy: partitioned in place below
-    ends = np.cumsum(counts)
+    return _run_percentiles(values[perm], np.cumsum(counts), q)
+
+
+def _run_percentiles(gathered, ends, q) -> np.ndarray:
+    """Percentiles (as :func:`grouped_unit_percentiles`) of consecutive runs of ``gathered``: group g
+    holds positions ends[g-1] .. ends[g] - 1. ``gathered`` is partitioned in place."""
+    ends = np.asarray(ends, dtype=np.int64)
+    counts = np.diff(np.r_[0, ends])
     starts = ends - counts
+    out = np.full((len(ends), len(q)), np.nan)
     for gi in np.nonzero(counts > 0)[0]:
         x = gathered[starts[gi]:ends[gi]]
         total = float(counts[gi])
@@ -220,6 +226,32 @@ def grouped_unit_percentiles(values, grouping, q) -> np.ndarray:
         v1 = x[k1].astype(np.float64)
         out[gi] = v0 + (v1 - v0) * frac
     return out
+
+
+def _common_runs(groupings, combo, sizes):
+    """(order, [ends per grouping]) when one element order makes every group of every grouping a
+    consecutive run (e.g. segments, zones, the whole reach and chainage bins: all intervals of
+    chainage), else None. The order sorts elements by their combined key (the cells of all groupings
+    at once: one radix sort of small keys); the runs of grouping i end at ends[i] (elements outside
+    grouping i come after them). Checked, not assumed: each grouping's numbers must not decrease along
+    the order."""
+    total = int(np.prod(sizes, dtype=np.float64))
+    occ = np.bincount(combo, minlength=total)
+    used = np.flatnonzero(occ)
+    n_cells = len(used)
+    dtype = np.int16 if n_cells < 32767 else np.int32
+    rem = used.copy()
+    bounds = []
+    for g, size in zip(groupings, sizes):
+        gid = rem % size
+        rem //= size
+        if n_cells > 1 and np.any(gid[1:] < gid[:-1]):
+            return None
+        per_group = np.bincount(gid, weights=occ[used].astype(np.float64), minlength=size)[: g.n_groups]
+        bounds.append(np.cumsum(per_group.astype(np.int64)))
+    lut = np.zeros(total, dtype=dtype)
+    lut[used] = np.arange(n_cells, dtype=dtype)
+    return np.argsort(lut[combo], kind="stable"), bounds
 
 
 def grouped_percentiles(values, groups, n_groups: int, q, perm=None, counts=None) -> np.ndarray:
@@ -330,19 +362,31 @@ class Grouping:
         return self._perm
 
 
-def _combined_sums(groupings, quantities, max_cells: int = 1 << 22):
+def _combo_key(groupings, max_cells: int = 1 << 22):
+    """(combined key, sizes): every element's cell in the table of all groupings at once (the first
+    grouping is the least significant digit; size n_groups + 1 each, the last for elements outside);
+    the key is None when that table would have more than ``max_cells`` cells."""
+    sizes = [g.n_groups + 1 for g in groupings]
+    if np.prod(sizes, dtype=np.float64) > max_cells:
+        return None, sizes
+    combo = np.zeros(len(groupings[0].key), dtype=np.int64)
+    for g, size in zip(reversed(groupings), reversed(sizes)):
+        combo *= size
+        combo += g.key
+    return combo, sizes
+
+
+def _combined_sums(groupings, quantities, max_cells: int = 1 << 22, combo=None):
     """Sums of each quantity per group of each grouping, from one bincount per quantity over the
     combined key of all groupings (when the combined table is small), else per grouping.
     ``quantities`` may yield arrays lazily (one is alive at a time); ``None`` repeats the sums of the
-    first quantity."""
+    first quantity. ``combo``: the combined key from :func:`_combo_key` when already made."""
     sizes = [g.n_groups + 1 for g in groupings]
     total = int(np.prod(sizes, dtype=np.float64))
     out = [[] for _ in groupings]
     if total <= max_cells:
-        combo = np.zeros(len(groupings[0].key), dtype=np.int64)
-        for g, size in zip(reversed(groupings), reversed(sizes)):
-            combo *= size
-            combo += g.key
+        if combo is None:
+            combo, _ = _combo_key(groupings, max_cells)
         nd = len(groupings)
         for qv in quantities:
             if qv is None:  # the same as the first quantity
@@ -364,17 +408,13 @@ def _combined_sums(groupings, quantities, max_cells: int = 1 << 22):
     return out
 
 
-def _class_sums(groupings, cls_key, area, n_cls: int, max_cells: int = 1 << 22):
+def _class_sums(groupings, cls_key, area, n_cls: int, max_cells: int = 1 << 22, combo=None):
     """Per grouping, an (n_groups, n_cls) table of class areas, from one weighted bincount over
-    (combined group key, class)."""
+    (combined group key, class). ``combo``: the combined group key when already made."""
     sizes = [g.n_groups + 1 for g in groupings]
     total = int(np.prod(sizes, dtype=np.float64)) * (n_cls + 1)
     if total <= max_cells:
-        combo = np.zeros(len(cls_key), dtype=np.int64)
-        for g, size in zip(reversed(groupings), reversed(sizes)):
-            combo *= size
-            combo += g.key
-        combo *= n_cls + 1
+        combo = _combo_key(groupings, max_cells)[0] * (n_cls + 1) if combo is None else combo * (n_cls + 1)
         combo += cls_key
         t = np.bincount(combo, weights=area, minlength=total).reshape(sizes[::-1] + [n_cls + 1])
         nd = len(groupings)
@@ -443,10 +483,11 @@ def summarise_groupings(speed, depth, area, codes, groupings, class_names, weigh
             yield ax
             del ax, x
 
-    sums = _combined_sums(groupings, quantities())
+    combo, sizes = _combo_key(groupings)
+    sums = _combined_sums(groupings, quantities(), combo=combo)
     if n_cls:
         cls_key = np.where((codes >= 1) & (codes <= n_cls), codes, 0).astype(np.int64)
-        for gi, ca in enumerate(_class_sums(groupings, cls_key, area, n_cls)):
+        for gi, ca in enumerate(_class_sums(groupings, cls_key, area, n_cls, combo=combo)):
             sums[gi].extend(ca.T)
     # --- percentiles ---------------------------------------------------------------------------
     w = area / float(weight_unit)
@@ -457,10 +498,24 @@ def summarise_groupings(speed, depth, area, codes, groupings, class_names, weigh
         jobs = [(gi, var, vals, vi) for gi in range(len(groupings)) for vi, (var, vals) in enumerate(pvars)
                 if var in want[gi]]
         if bool(np.all(w == 1.0)):  # equal weights (a raster): selection per group, no value sort
+            runs = None
+            if combo is not None and len(groupings) > 1 and all(np.isfinite(vals).all() for _, vals in pvars):
+                runs = _common_runs(groupings, combo, sizes)
+            if runs is not None:  # one order for all groupings: one gather per variable
+                order, ends = runs
+                used = max(int(e[-1]) if len(e) else 0 for e in ends)
+                gathered = {var: vals[order[:used]] for var, vals in pvars if any(var in w_ for w_ in want)}
 
-            def run(job):
-                gi, var, vals, _ = job
-                return grouped_unit_percentiles(vals, groupings[gi], PERCENTILES)
+                def run(job):
+                    gi, var, _, _ = job
+                    e = ends[gi]
+                    return _run_percentiles(gathered[var][: int(e[-1]) if len(e) else 0].copy(), e,
+                                            _check_q(PERCENTILES))
+            else:
+
+                def run(job):
+                    gi, var, vals, _ = job
+                    return grouped_unit_percentiles(vals, groupings[gi], PERCENTILES)
         else:
             if vorders is None or vorders[0] is None:
                 used = sorted({job[3] for job in jobs})

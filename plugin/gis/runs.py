@@ -93,6 +93,38 @@ def _aligned(ds, ref_ds, param: str, ref_param: str, notes: list):
     return out
 
 
+def _read_at(band, c0: int, r0: int, ncols: int, nrows: int, flat, rr, cc) -> np.ndarray:
+    """float32 values of ``band`` at the cells ``flat`` (row-major in the window of ``ncols`` x
+    ``nrows`` cells from column c0, row r0; ``rr``, ``cc`` = divmod(flat, ncols)).
+
+    A tiled raster is read only in the blocks that hold one of the cells (runs of neighbouring
+    blocks read at once): the dry blocks of a meandering reach's grid are never decoded. Other
+    layouts (strips, or most blocks needed) are read whole."""
+    bx, by = band.GetBlockSize()
+    if bx >= ncols or by <= 0 or flat.size == 0:
+        return band.ReadAsArray(c0, r0, ncols, nrows).astype(np.float32, copy=False).ravel()[flat]
+    bcol = (cc + c0) // bx
+    brow = (rr + r0) // by
+    nbx = (c0 + ncols - 1) // bx + 1
+    keys = np.unique(brow * nbx + bcol)
+    br, bc = np.divmod(keys, nbx)
+    n_blocks = (((r0 + nrows - 1) // by - r0 // by + 1) * ((c0 + ncols - 1) // bx - c0 // bx + 1))
+    if len(keys) > 0.7 * n_blocks:
+        return band.ReadAsArray(c0, r0, ncols, nrows).astype(np.float32, copy=False).ravel()[flat]
+    buf = np.empty((nrows, ncols), dtype=np.float32)
+    # runs of consecutive blocks in one block row
+    new_run = np.r_[True, (br[1:] != br[:-1]) | (bc[1:] != bc[:-1] + 1)]
+    starts = np.flatnonzero(new_run)
+    stops = np.r_[starts[1:], len(keys)] - 1
+    for i, j in zip(starts, stops):
+        y0 = max(int(br[i]) * by, r0)
+        y1 = min((int(br[i]) + 1) * by, r0 + nrows)
+        x0 = max(int(bc[i]) * bx, c0)
+        x1 = min((int(bc[j]) + 1) * bx, c0 + ncols)
+        buf[y0 - r0:y1 - r0, x0 - c0:x1 - c0] = band.ReadAsArray(x0, y0, x1 - x0, y1 - y0)
+    return buf.ravel()[flat]
+
+
 def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, v: str | None = None,
                     wet_depth_m: float = DEFAULT_WET_DEPTH_M, name: str = "", params: dict | None = None,
                     progress=None, bbox=None) -> HydraulicField:
@@ -156,7 +188,7 @@ def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, 
             d_parts.append(d.ravel()[flat])
             del d, valid, wet
             for k, b in bands.items():
-                a = b.ReadAsArray(c0, start, ncols, n).astype(np.float32, copy=False).ravel()[flat]
+                a = _read_at(b, c0, start, ncols, n, flat, rr, cc)
                 nd = nds[k]
                 if nd is not None and np.isfinite(nd):
                     a = np.where(a == nd, np.nan, a)

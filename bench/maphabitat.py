@@ -32,7 +32,12 @@ Variants
                main row is this first (cold) run; a second row gives a second run on the same grid in
                the same session (what each further discharge of a scenario table costs: the chainage
                of the grid is cached), outputs overwritten.
-  maphabitat phases: the same steps called directly (no Processing), timed one by one.
+  maphabitat phases: the same steps called directly (no Processing), timed one by one, one after the
+               other. In the algorithm several overlap: the rasters are read in a background thread
+               while the centreline is read; the CLASSES GeoTIFF is encoded, and patches and wet
+               footprints are polygonized, in background threads while locating, statistics and the
+               report run; locating and the statistics use 2 threads themselves. So the sum of the
+               phases is more than the run's wall time, and less than its CPU time.
 """
 
 from __future__ import annotations
@@ -239,10 +244,11 @@ def child_phases(p: dict, work: Path) -> dict:
     """The maphabitat steps called directly, timed one by one (no Processing, no QGIS layers)."""
     import numpy as np
 
+    import plugin.algorithms.base  # noqa: F401 - imported by the report (its caution); loaded with the plugin
     from plugin.core import habitat
     from plugin.core.classes import velocity_preset
     from plugin.core.reach import Reach, ReachAxis, locate_field, parse_zone_breaks, segment_edges
-    from plugin.gis import geotiff, habitatreport, patches
+    from plugin.gis import classraster, geotiff, habitatreport, patches
     from plugin.gis.runs import read_raster_run
 
     times = {}
@@ -254,7 +260,7 @@ def child_phases(p: dict, work: Path) -> dict:
 
     t = time.perf_counter()
     fld = read_raster_run(p["depth"], p["speed"])
-    tick("read depth + speed", t)
+    tick("read depth + speed (speed only in blocks with wet cells)", t)
     from osgeo import ogr
 
     ds = ogr.Open(p["centreline"].split("|")[0])
@@ -268,24 +274,21 @@ def child_phases(p: dict, work: Path) -> dict:
     reach = Reach(axis, segment_edges(axis.start_m, axis.end_m, 1000.0), ze, zn)
     t = time.perf_counter()
     loc = locate_field(reach, fld)
-    tick("locate (chainage, cold)", t)
+    tick("locate (chainage, cold; 2 threads)", t)
     t = time.perf_counter()
     ra = habitat.analyse_run(fld, reach, velocity_preset(), location=loc)
     tick("classes + statistics (segments, zones, reach, profile)", t)
     t = time.perf_counter()
-    ptc = patches.raster_patches(ra)
-    tick("patches (polygonize per segment, 2 threads)", t)
+    ptc, _ = patches.start_patch_job(ra, footprints=True).result()
+    tick("patches + segment and zone footprints (one pass, 2 threads)", t)
     t = time.perf_counter()
-    patches.wet_footprints(ra)
-    tick("segment and zone footprints", t)
-    t = time.perf_counter()
-    geotiff.write(str(work / "phase_classes.tif"), patches.class_grid(ra), fld.support.transform, fld.crs_wkt,
-                  nodata=0, colours={i + 1: c for i, c in enumerate(ra.scheme.colours)})
+    geotiff.write(str(work / "phase_classes.tif"), classraster.class_grid(fld, ra.codes), fld.support.transform,
+                  fld.crs_wkt, nodata=0, colours={i + 1: c for i, c in enumerate(ra.scheme.colours)})
     tick("write CLASSES GeoTIFF", t)
     t = time.perf_counter()
     habitatreport.build_report(ra, habitat.run_summary(ra), [], patch_count=len(ptc)).write(
         str(work / "phase_report.html"))
-    tick("report (3 charts)", t)
+    tick("report (3 SVG charts)", t)
     return {"seconds": sum(times.values()), "cpu_s": cpu_s() - c0, "phases": times, "wet": fld.n,
             "grid": list(fld.support.shape), "rss_before_mb": before}
 

@@ -107,6 +107,14 @@ class _Tables:
     amb_step: float  # spacing of the ambiguity samples along the line
     amb_t: np.ndarray  # (n_samples, 2) distance from which a point is ambiguous, left / right
     amb_code: np.ndarray  # (n_samples, 2) reason
+    amb_pending: object = None  # Future of (amb_step, amb_t, amb_code) while built in a thread
+
+    def ambiguity_ready(self) -> _Tables:
+        """The ambiguity tables, waiting for them if they are being built in a thread."""
+        if self.amb_pending is not None:
+            self.amb_step, self.amb_t, self.amb_code = self.amb_pending.result()
+            self.amb_pending = None
+        return self
 
 
 # ------------------------------------------------------------------------------------------------
@@ -385,12 +393,21 @@ class PolylineIndex:
         whi = np.clip(np.maximum(whi, ids + 1), 0, nseg - 1).astype(np.int32)
         mx = 0.5 * (ex[:-1] + ex[1:])
         my = 0.5 * (ey[:-1] + ey[1:])
+        pending = None
+        if self.threads > 1:
+            # the ambiguity tables are needed only once every point is located: built in a thread
+            # meanwhile (the same computation; numpy and the k-d tree release the GIL in parts)
+            pool = ThreadPoolExecutor(1, thread_name_prefix="ambiguity")
+            pending = pool.submit(self._ambiguity_tables, cap)
+            pool.shutdown(wait=False)
+            amb_step, amb_t, amb_code = 0.0, None, None
+        else:
+            amb_step, amb_t, amb_code = self._ambiguity_tables(cap)
         rho = self._piece_clearance(cap, h, seg, plen, mx, my, wlo, whi)
-        amb_step, amb_t, amb_code = self._ambiguity_tables(cap)
         v_side, v_cone, v_any = self._vertex_clearance(cap, h, wlo, whi)
         return _Tables(cap, h, margin, wlo, whi, first.astype(np.int32), count.astype(np.int32),
                        np.minimum(rho, cap), v_side, v_cone, np.minimum(v_any, cap),
-                       amb_step, amb_t, amb_code)
+                       amb_step, amb_t, amb_code, pending)
 
     def _point_at(self, along):
         """Coordinates and segment of points at the given along-line positions (local frame)."""
@@ -832,6 +849,7 @@ class PolylineIndex:
     # ambiguity
     # --------------------------------------------------------------------------------------------
     def _ambiguity(self, tb, seg, along, off, X, Y):
+        tb.ambiguity_ready()
         d = np.abs(off)
         side = (off < 0).astype(np.int8)
         k = np.minimum(((self.cum[seg] + along) * (1.0 / tb.amb_step)).astype(np.int64), len(tb.amb_t) - 1)

@@ -61,7 +61,8 @@ def test_fitrating_runs_headless(qp_env, tmp_path):
          f"LEVELS={levels}", f"REPORT={tmp_path / 'rating.html'}"],
         env=qp_env, capture_output=True, text=True, timeout=300)
     assert res.returncode == 0, res.stdout[-2000:] + res.stderr[-2000:]
-    rows = list(csv.DictReader(open(levels)))
+    with open(levels, newline="") as fh:
+        rows = list(csv.DictReader(fh))
     got = {float(r["q_mld"]): float(r["stage_m"]) for r in rows}
     for q, h in got.items():
         assert abs(h - (10.0 + (q / 50.0) ** (1 / 1.8))) < 1e-4

@@ -24,7 +24,7 @@ from ..core import scenario as scn
 from ..core.errors import ChannelHabitatError
 from ..core.habitat import check_metric_crs, crs_name, reach_in_crs
 from ..core.reach import locate_field
-from ..core.units import to_m3s, to_mld
+from ..core.units import parse_numbers, to_m3s, to_mld
 from ..gis import driftio, outputs, reachinput, runinput, schemeinput
 from ..gis.driftreport import build_report
 from ..gis.runs import same_crs
@@ -193,7 +193,7 @@ docs/algorithms/driftresidence.md.</p>
         regimes = [r.strip() for r in self.parameterAsString(parameters, "SCENARIO_REGIMES", context).split(",")
                    if r.strip()]
         qs = [float(to_mld(v, unit, "SCENARIO_DISCHARGES"))
-              for v in _numbers(self.parameterAsString(parameters, "SCENARIO_DISCHARGES", context),
+              for v in parse_numbers(self.parameterAsString(parameters, "SCENARIO_DISCHARGES", context),
                                 "SCENARIO_DISCHARGES")]
         unknown = [r for r in regimes if r not in scn.regimes_of(rows)]
         if unknown:
@@ -347,16 +347,3 @@ def _settings(runs, scheme, options, wet, seeds, reach) -> list:
         items.append(("Time step", tracked[0].result.step.describe()))
     items.append(("1D estimate band", f"|offset| <= {options.band_fraction:g} x wet width / 2"))
     return items
-
-
-def _numbers(text: str, parameter: str) -> list:
-    vals = []
-    for part in (text or "").replace(";", ",").split(","):
-        part = part.strip()
-        if not part:
-            continue
-        try:
-            vals.append(float(part))
-        except ValueError:
-            raise ChannelHabitatError(f"'{part}' is not a number", parameter) from None
-    return vals

@@ -22,7 +22,7 @@ from qgis.core import (
 from ..core import vegetation as veg
 from ..core.errors import ChannelHabitatError
 from ..core.habitat import check_metric_crs
-from ..core.units import to_m3s, to_mld
+from ..core.units import parse_numbers, to_m3s, to_mld
 from ..gis import layouts, outputs, runinput, scenarioinput, scenariorun, schemeinput, vegetationio
 from ..gis.runs import same_crs
 from ..gis.vegetationreport import build_report
@@ -143,7 +143,7 @@ each change of class.</p>
         rows, _, workers = scenarioinput.read_scenario_parameters(self, parameters, context)
         unit = UNITS[self.parameterAsEnum(parameters, "DISCHARGE_UNIT", context)]
         qs = [float(to_mld(v, unit, "SCENARIO_DISCHARGES"))
-              for v in _numbers(self.parameterAsString(parameters, "SCENARIO_DISCHARGES", context),
+              for v in parse_numbers(self.parameterAsString(parameters, "SCENARIO_DISCHARGES", context),
                                 "SCENARIO_DISCHARGES")]
         if qs:
             rows = [r for r in rows if any(abs(r.q_mld - q) <= 1e-6 * q for q in qs)]
@@ -235,19 +235,6 @@ each change of class.</p>
             report.write(report_path)
             out["REPORT"] = report_path
         return out
-
-
-def _numbers(text: str, parameter: str) -> list:
-    vals = []
-    for part in (text or "").replace(";", ",").split(","):
-        part = part.strip()
-        if not part:
-            continue
-        try:
-            vals.append(float(part))
-        except ValueError:
-            raise ChannelHabitatError(f"'{part}' is not a number", parameter) from None
-    return vals
 
 
 def _edge_table(stands, results):

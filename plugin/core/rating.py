@@ -52,7 +52,7 @@ from scipy import stats as sps
 from scipy.optimize import least_squares, minimize_scalar
 
 from .errors import ChannelHabitatError
-from .units import m3s_to_mld, mld_to_m3s, normalise_unit
+from .units import m3s_to_mld, mld_to_m3s, normalise_unit, parse_numbers
 
 FIT_SPACES = ("log", "linear", "stage")
 SPACE_TEXT = {"log": "least squares on ln Q", "linear": "least squares on Q",
@@ -492,16 +492,9 @@ def rating_table(fit: RatingFit) -> dict:
 
 def parse_discharge_list(text: str, parameter: str = "LADDER") -> np.ndarray:
     """'3000, 4000, 5000' (commas, semicolons or spaces) -> array; positive, no repeats."""
-    parts = [p for p in re.split(r"[,;\s]+", str(text or "").strip()) if p]
-    if not parts:
+    vals = parse_numbers(text, parameter)
+    if not vals:
         raise ChannelHabitatError("give the discharges, e.g. '3000, 4000, 5000'", parameter)
-    vals = []
-    for p in parts:
-        try:
-            vals.append(float(p))
-        except ValueError:
-            raise ChannelHabitatError(f"'{p}' is not a number; list discharges like '3000, 4000, 5000' "
-                                      "(no units, no thousands separators)", parameter) from None
     return ladder_from_values(vals, parameter)
 
 

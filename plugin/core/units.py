@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 
 from .errors import ChannelHabitatError
@@ -52,3 +54,16 @@ def to_mld(q, unit: str, parameter: str | None = None):
 def to_m3s(q, unit: str, parameter: str | None = None):
     u = normalise_unit(unit, parameter)
     return np.asarray(q, dtype=float) if u == "m3/s" else mld_to_m3s(q)
+
+
+def parse_numbers(text: str, parameter: str | None = None) -> list:
+    """'3000, 4000; 5000 6000' -> [3000.0, 4000.0, 5000.0, 6000.0] (commas, semicolons or spaces).
+    Empty text gives an empty list; anything that is not a number is refused by name."""
+    vals = []
+    for part in (p for p in re.split(r"[,;\s]+", str(text or "").strip()) if p):
+        try:
+            vals.append(float(part))
+        except ValueError:
+            raise ChannelHabitatError(f"'{part}' is not a number; list numbers like '3000, 4000, 5000' "
+                                      "(no units, no thousands separators)", parameter) from None
+    return vals

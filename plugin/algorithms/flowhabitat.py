@@ -7,17 +7,15 @@ from qgis.core import (
     QgsProcessing,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFileDestination,
-    QgsProcessingParameterNumber,
     QgsProcessingParameterString,
 )
 
 from ..core import curves as cv
-from ..core.field import DEFAULT_WET_DEPTH_M
-from ..gis import outputs, reachinput, scenarioinput, scenariorun, schemeinput
+from ..gis import flowcurves, outputs, scenarioinput
 from ..gis.flowreport import build_report, runs_table
 from .base import ChannelHabitatAlgorithm
 
-WET_DEPTH = "WET_DEPTH"
+WET_DEPTH = flowcurves.WET_DEPTH
 TARGET_STATEMENTS = "TARGET_STATEMENTS"
 
 
@@ -78,12 +76,7 @@ nothing is extrapolated beyond the runs.</p>
 """
 
     def define(self, config):
-        scenarioinput.add_scenario_parameters(self)
-        reachinput.add_reach_parameters(self)
-        schemeinput.add_scheme_parameters(self, advanced_table=True)
-        self.addParameter(QgsProcessingParameterNumber(
-            WET_DEPTH, "Wet-depth threshold (m): shallower is dry", QgsProcessingParameterNumber.Type.Double,
-            DEFAULT_WET_DEPTH_M, minValue=0.0))
+        flowcurves.add_curve_parameters(self)  # SCENARIOS, the reach, the classes, WET_DEPTH
         self.addParameter(QgsProcessingParameterString(
             TARGET_STATEMENTS, "Targets, e.g. 'lower: moderate+fast >= 50%' (one per line or ';')", multiLine=True,
             optional=True))
@@ -97,26 +90,16 @@ nothing is extrapolated beyond the runs.</p>
     def compute(self, parameters, context, feedback):
         # --- inputs (everything checked before a run is read) --------------------------------------
         rows, table_desc, workers = scenarioinput.read_scenario_parameters(self, parameters, context)
-        infos = scenariorun.preflight(rows)  # file headers: CRS and grids, mixed CRS refused
-        reach = reachinput.read_reach_parameters(self, parameters, context, feedback, target_crs_wkt=infos[0].crs_wkt)
-        scheme = schemeinput.read_scheme_parameters(self, parameters, context, feedback)
-        wet = self.parameterAsDouble(parameters, WET_DEPTH, context)
+        inputs = flowcurves.read_curve_inputs(self, parameters, context, feedback, rows)  # headers, reach, scheme
+        reach, scheme, wet = inputs.reach, inputs.scheme, inputs.wet_depth_m
         targets = cv.parse_targets(self.parameterAsString(parameters, TARGET_STATEMENTS, context), reach.zone_names,
                                    scheme.names, reach.n_segments, parameter=TARGET_STATEMENTS)
         feedback.pushInfo(f"{len(rows)} runs of {len(set(r.regime for r in rows))} regime(s) from {table_desc}")
 
         # --- every run: classes and class areas per reach, zone and segment -----------------------
-        def work(run):
-            codes = scheme.classify(run.field.depth, run.field.speed)
-            ua = cv.class_areas_by_unit(run.reach, run.location, codes, run.field.area, len(scheme.names))
-            r = run.row
-            areas = cv.RunAreas(r.regime, r.q_mld, ua.class_areas, ua.wet_area, r.q_m3s, r.label)
-            return areas, (run.field.n, ua.outside_m2, ua.unclassified_m2)
-
-        table = scenariorun.run_scenarios(rows, work, wet_depth_m=wet, reach=reach, workers=workers, infos=infos,
-                                          progress=self.progress(feedback, 0.0, 0.85), log=feedback.pushInfo)
-        units = cv.scope_units(table.reach)
-        curves = cv.FlowHabitatCurves.from_runs([res[0] for res in table.results], units, scheme.names)
+        run = flowcurves.compute_curves(inputs, workers=workers, progress=self.progress(feedback, 0.0, 0.85),
+                                        log=feedback.pushInfo)
+        curves, table = run.curves, run.table
         results = cv.required_discharge(curves, targets)
         curve_cols = curves.table()
         target_cols = cv.targets_table(results)

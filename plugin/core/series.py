@@ -585,36 +585,30 @@ def volume_to_ml(value: float, unit: str, parameter: str = "ENV_VOLUME") -> floa
 # ------------------------------------------------------------------------------------------
 # Habitat through time: the curves of one regime, criteria, options, the three tables
 # ------------------------------------------------------------------------------------------
-class CurveView:
-    """One regime of the flow-habitat curves (``core.curves.FlowHabitatCurves``) as habitatseries
-    asks them: class shares at any discharges, interpolated exactly as flowhabitat does (PCHIP on
-    ln discharge, exact at the runs, NaN outside the runs - never extrapolated)."""
+class CurveUnits:
+    """The scope units and classes of flow-habitat curves, without a regime: enough to check the
+    units, classes and targets a user names. habitatseries builds one from the reach and class scheme
+    (``FlowHabitatCurves(scope_units(reach), scheme.names, {})``) to check them before any run of a
+    scenario table is read; :class:`CurveView` adds the regime."""
 
-    def __init__(self, curves, regime: str | None = None, parameter: str = "REGIME"):
-        regime = (regime or "").strip()
-        if not regime:
-            if len(curves.regimes) != 1:
-                raise ChannelHabitatError(
-                    f"the curves hold several regimes ({', '.join(curves.regimes)}): name the one the flow "
-                    "series applies to", parameter)
-            regime = curves.regimes[0]
-        elif regime not in curves.regimes:
-            match = [r for r in curves.regimes if r.casefold() == regime.casefold()]
-            if not match:
-                raise ChannelHabitatError(
-                    f"no regime '{regime}' in the curves (regimes: {', '.join(curves.regimes)})", parameter)
-            regime = match[0]
+    def __init__(self, curves):
         self.curves = curves
-        self.regime = regime
-        self.ladder_mld = curves.ladder(regime)
         self.classes = list(curves.class_names)
         self.unit_keys = [u.key for u in curves.units]
+
+    @property
+    def zone_names(self) -> list:
+        return [u.unit for u in self.curves.units if u.scope == "zone"]
+
+    @property
+    def n_segments(self) -> int:
+        return sum(1 for u in self.curves.units if u.scope == "segment")
 
     def default_units(self) -> list:
         """The reach and every zone (segments only when asked for)."""
         return [u.key for u in self.curves.units if u.scope in ("reach", "zone")]
 
-    def resolve_units(self, text: str, parameter: str = "ZONES") -> list:
+    def resolve_units(self, text: str, parameter: str = "REPORT_UNITS") -> list:
         """'reach, lower, segment 3' -> unit keys (empty text: the reach and every zone)."""
         names = [t.strip() for t in re.split(r"[,;\n]", text or "") if t.strip()]
         if not names:
@@ -634,6 +628,35 @@ class CurveView:
         except ChannelHabitatError as err:
             raise ChannelHabitatError(f"{err}{hint}", err.parameter) from None
         return tuple(self.classes[i] for i in idx)
+
+
+def match_regime(regimes, regime: str | None, parameter: str = "REGIME", where: str = "the curves") -> str:
+    """The regime of ``regimes`` named by ``regime`` (case-insensitive); empty: the only one."""
+    regimes = list(regimes)
+    regime = (regime or "").strip()
+    if not regime:
+        if len(regimes) != 1:
+            raise ChannelHabitatError(
+                f"{where} hold several regimes ({', '.join(regimes)}): name the one the flow series applies to",
+                parameter)
+        return regimes[0]
+    if regime in regimes:
+        return regime
+    match = [r for r in regimes if r.casefold() == regime.casefold()]
+    if not match:
+        raise ChannelHabitatError(f"no regime '{regime}' in {where} (regimes: {', '.join(regimes)})", parameter)
+    return match[0]
+
+
+class CurveView(CurveUnits):
+    """One regime of the flow-habitat curves (``core.curves.FlowHabitatCurves``) as habitatseries
+    asks them: class shares at any discharges, interpolated exactly as flowhabitat does (PCHIP on
+    ln discharge, exact at the runs, NaN outside the runs - never extrapolated)."""
+
+    def __init__(self, curves, regime: str | None = None, parameter: str = "REGIME"):
+        super().__init__(curves)
+        self.regime = match_regime(curves.regimes, regime, parameter)
+        self.ladder_mld = curves.ladder(self.regime)
 
     def inside(self, q_mld) -> np.ndarray:
         from .curves import inside_ladder

@@ -204,7 +204,7 @@ def test_curve_view_regime_units_classes():
     assert v.resolve_units("LOWER, reach") == ["lower", "reach"]
     with pytest.raises(ChannelHabitatError, match="no unit 'middle'") as e:
         v.resolve_units("middle")
-    assert e.value.parameter == "ZONES"
+    assert e.value.parameter == "REPORT_UNITS"
     assert v.resolve_classes("very_slow+Slow", "BLOOM_CLASSES") == ("very slow", "slow")
     with pytest.raises(ChannelHabitatError, match="no class 'pool'") as e:
         v.resolve_classes("pool", "BLOOM_CLASSES")

@@ -90,15 +90,14 @@ nothing is extrapolated beyond the runs.</p>
     def compute(self, parameters, context, feedback):
         # --- inputs (everything checked before a run is read) --------------------------------------
         rows, table_desc, workers = scenarioinput.read_scenario_parameters(self, parameters, context)
-        inputs = flowcurves.read_curve_inputs(self, parameters, context, feedback, rows)  # headers, reach, scheme
+        inputs = flowcurves.read_curve_inputs(self, parameters, context, feedback, rows, workers)
         reach, scheme, wet = inputs.reach, inputs.scheme, inputs.wet_depth_m
         targets = cv.parse_targets(self.parameterAsString(parameters, TARGET_STATEMENTS, context), reach.zone_names,
                                    scheme.names, reach.n_segments, parameter=TARGET_STATEMENTS)
         feedback.pushInfo(f"{len(rows)} runs of {len(set(r.regime for r in rows))} regime(s) from {table_desc}")
 
         # --- every run: classes and class areas per reach, zone and segment -----------------------
-        run = flowcurves.compute_curves(inputs, workers=workers, progress=self.progress(feedback, 0.0, 0.85),
-                                        log=feedback.pushInfo)
+        run = flowcurves.compute_curves(inputs, progress=self.progress(feedback, 0.0, 0.85), log=feedback.pushInfo)
         curves, table = run.curves, run.table
         results = cv.required_discharge(curves, targets)
         curve_cols = curves.table()

@@ -18,7 +18,8 @@ from qgis.core import (
 
 from ..core import series as core
 from ..core.curves import METHOD, FlowHabitatCurves, parse_targets
-from ..gis import outputs
+from ..core.errors import ChannelHabitatError
+from ..gis import flowcurves, outputs, reachinput, scenarioinput, schemeinput
 from ..gis.seriesinput import read_text_file
 from ..gis.seriesreport import build_report
 from ..gis.tableinput import table_columns
@@ -98,6 +99,14 @@ refused. The flow series is taken as the flow through the reach on each day (no 
 """
 
 
+REPORT_UNITS = "REPORT_UNITS"
+CURVES_OUT = "CURVES_OUT"
+SCENARIO_NOTE = " [with SCENARIOS]"
+# Reach and class parameters that mean nothing when the curves come from a CURVES table.
+SCENARIO_ONLY = (reachinput.CENTRELINE, reachinput.ZONE_BREAKS, reachinput.SEGMENTS, reachinput.ZONES,
+                 schemeinput.CLASS_FILE)
+
+
 class HabitatSeries(ChannelHabitatAlgorithm):
     ALG_ID = "habitatseries"
     DISPLAY_NAME = "Habitat through time (flow series, spells, delivery options)"
@@ -106,9 +115,12 @@ class HabitatSeries(ChannelHabitatAlgorithm):
 
     def define(self, config):
         self.addParameter(QgsProcessingParameterFeatureSource(
-            "CURVES", "Flow-habitat curves (flowhabitat CURVES table)", [QgsProcessing.SourceType.TypeVector]))
-        self.addParameter(QgsProcessingParameterString("REGIME", "Regime (empty: the only one in CURVES)",
-                                                       optional=True))
+            "CURVES", "Flow-habitat curves (flowhabitat CURVES table) [or SCENARIOS]",
+            [QgsProcessing.SourceType.TypeVector], optional=True))
+        # SCENARIOS, the reach, the classes and WET_DEPTH: flowhabitat's own parameters, to compute the curves
+        flowcurves.add_curve_parameters(self, optional=True, regimes=False, note=SCENARIO_NOTE)
+        self.addParameter(QgsProcessingParameterString(
+            "REGIME", "Regime (empty: the only one in CURVES or SCENARIOS)", optional=True))
         self.addParameter(QgsProcessingParameterFile(
             "FLOWS", "Daily flow series (CSV: date, discharge, unit)", extension="csv"))
         self.addParameter(QgsProcessingParameterEnum(
@@ -118,7 +130,7 @@ class HabitatSeries(ChannelHabitatAlgorithm):
             "ALTERNATIVES", "Alternative series columns (comma-separated; empty: every further column)",
             optional=True))
         self.addParameter(QgsProcessingParameterString(
-            "ZONES", "Units to report: zone names, 'reach', 'segment N' (empty: reach and every zone)",
+            REPORT_UNITS, "Units to report: zone names, 'reach', 'segment N' (empty: reach and every zone)",
             optional=True))
         self.addParameter(QgsProcessingParameterString(
             "TARGET_STATEMENTS", "Targets, e.g. 'lower: moderate+fast >= 50%' (one per line or ';')", multiLine=True,
@@ -148,26 +160,67 @@ class HabitatSeries(ChannelHabitatAlgorithm):
             "SPELLS", "Spells", QgsProcessing.SourceType.TypeVector))
         self.addParameter(QgsProcessingParameterFeatureSink(
             "OPTIONS", "Delivery options compared", QgsProcessing.SourceType.TypeVector))
+        self.addParameter(QgsProcessingParameterFeatureSink(
+            CURVES_OUT, "Computed flow-habitat curves (CURVES table of the regime)" + SCENARIO_NOTE,
+            QgsProcessing.SourceType.TypeVector, optional=True, createByDefault=False))
         self.addParameter(QgsProcessingParameterFileDestination(
             "REPORT", "Report", "HTML files (*.html)", optional=True, createByDefault=True))
 
+    # ------------------------------------------------------------------------------------------
+    def _curve_source(self, parameters, context, feedback):
+        """Exactly one of CURVES and SCENARIOS. Returns (curves view or None, plan or None, regime,
+        names: CurveUnits, report rows). With SCENARIOS the plan holds the checked inputs of the runs of
+        the regime (nothing read yet beyond the file headers); with CURVES the view is ready."""
+        curves_given = parameters.get("CURVES") not in (None, "")
+        table_given = scenarioinput.scenarios_given(parameters)
+        if curves_given and table_given:
+            raise ChannelHabitatError(
+                "give either CURVES (flowhabitat's CURVES table) or SCENARIOS (a scenario table to compute the "
+                "curves from), not both", "CURVES")
+        if not curves_given and not table_given:
+            raise ChannelHabitatError(
+                "give CURVES (flowhabitat's CURVES table) or SCENARIOS (a scenario table, with the reach "
+                "CENTRELINE, to compute the curves from)", "CURVES")
+        regime_text = self.parameterAsString(parameters, "REGIME", context)
+        if curves_given:
+            ignored = [n for n in SCENARIO_ONLY if parameters.get(n) not in (None, "")]
+            if ignored:
+                feedback.pushWarning(f"{', '.join(ignored)}: used only to compute the curves from SCENARIOS; "
+                                     "ignored with a CURVES table.")
+            source = self.parameterAsSource(parameters, "CURVES", context)
+            curves = FlowHabitatCurves.from_table(table_columns(source, parameter="CURVES"), "CURVES")
+            view = core.CurveView(curves, regime_text)
+            return view, None, view.regime, view, [("Flow-habitat curves", f"CURVES table {source.sourceName()}")]
+        rows, table_desc, workers = scenarioinput.read_scenario_parameters(self, parameters, context)
+        regime, regime_rows = flowcurves.rows_of_regime(rows, regime_text)
+        plan = flowcurves.read_curve_inputs(self, parameters, context, feedback, regime_rows, workers)
+        others = [r for r in dict.fromkeys(r.regime for r in rows) if r != regime]
+        feedback.pushInfo(
+            f"Curves computed from the scenario table {table_desc}: the {len(regime_rows)} runs of regime {regime} "
+            f"only" + (f" (the table's {len(rows) - len(regime_rows)} runs of {', '.join(others)} are not needed "
+                       "and not read)" if others else "") + ".")
+        info = [("Flow-habitat curves", f"computed from the scenario table {table_desc}: {len(regime_rows)} runs of "
+                 f"regime {regime}"),
+                ("Class scheme", f"{plan.scheme.name}: {', '.join(plan.scheme.names)}"),
+                ("Wet-depth threshold", f"{plan.wet_depth_m:g}", "m"),
+                ("Reach", f"chainage {plan.reach.axis.start_m:,.0f}–{plan.reach.axis.end_m:,.0f} m; "
+                 f"{plan.reach.n_zones} zones ({', '.join(plan.reach.zone_names)}), {plan.reach.n_segments} segments")]
+        return None, plan, regime, core.CurveUnits(plan.skeleton()), info
+
     def compute(self, parameters, context, feedback):
         progress = self.progress(feedback)
-        # -- the curves of one regime, the units, targets and bloom criteria
-        curves = FlowHabitatCurves.from_table(
-            table_columns(self.parameterAsSource(parameters, "CURVES", context), parameter="CURVES"), "CURVES")
-        view = core.CurveView(curves, self.parameterAsString(parameters, "REGIME", context))
-        units = view.resolve_units(self.parameterAsString(parameters, "ZONES", context))
-        zone_names = [u.unit for u in curves.units if u.scope == "zone"]
-        n_segments = sum(1 for u in curves.units if u.scope == "segment")
-        targets = parse_targets(self.parameterAsString(parameters, "TARGET_STATEMENTS", context), zone_names,
-                                curves.class_names, n_segments, parameter="TARGET_STATEMENTS")
+        # -- the curves (or what computing them needs), the units, targets and bloom criteria: all checked
+        #    before a run of a scenario table is read
+        view, plan, regime, names, curve_info = self._curve_source(parameters, context, feedback)
+        units = names.resolve_units(self.parameterAsString(parameters, REPORT_UNITS, context), REPORT_UNITS)
+        targets = parse_targets(self.parameterAsString(parameters, "TARGET_STATEMENTS", context), names.zone_names,
+                                names.classes, names.n_segments, parameter="TARGET_STATEMENTS")
         criteria = core.target_criteria(targets)
         bloom_text = self.parameterAsString(parameters, "BLOOM_CLASSES", context).strip()
         bloom_share = self.parameterAsDouble(parameters, "BLOOM_SHARE", context)
         bloom_days = self.parameterAsInt(parameters, "BLOOM_MIN_DAYS", context)
         if bloom_text:
-            criteria += core.bloom_criteria(units, view.resolve_classes(
+            criteria += core.bloom_criteria(units, names.resolve_classes(
                 bloom_text, "BLOOM_CLASSES", "; name the very slow class(es) of these curves, or leave "
                 "BLOOM_CLASSES empty to skip the bloom-risk analysis"),
                                             bloom_share, bloom_days)
@@ -188,13 +241,20 @@ class HabitatSeries(ChannelHabitatAlgorithm):
         wua = None
         if parameters.get("WUA"):
             wua = core.WuaCurves.from_table(
-                table_columns(self.parameterAsSource(parameters, "WUA", context), parameter="WUA"), view.regime, units)
+                table_columns(self.parameterAsSource(parameters, "WUA", context), parameter="WUA"), regime, units)
+        # -- a scenario table: the curves of the regime (every run read and classified on both cores)
+        computed = None
+        span = 0.0
+        if plan is not None:
+            span = 0.6
+            computed = flowcurves.compute_curves(plan, progress=progress.sub(0.0, span), log=feedback.pushInfo)
+            view = core.CurveView(computed.curves, regime)
         # -- compute everything, then the report, then write
         res = core.analyse_series(series, view, units, criteria, deliveries, volume if volume > 0 else None,
-                                  wua, progress.sub(0.0, 0.7))
+                                  wua, progress.sub(span, span + 0.7 * (1.0 - span)))
         for note in res.notes:
             feedback.pushWarning(note)
-        inputs = [
+        inputs = curve_info + [
             ("Flow series", os.path.basename(flows_path)),
             ("Days", f"{series.n_days} ({core.iso(series.start)} to {core.iso(series.end)})"),
             ("Regime", view.regime),
@@ -205,12 +265,19 @@ class HabitatSeries(ChannelHabitatAlgorithm):
             ("Bloom risk", f"{bloom_text} > {bloom_share:g} % of the unit for >= {bloom_days} days"
              if bloom_text else "not analysed"),
         ]
-        progress(0.75, "report")
+        progress(span + 0.75 * (1.0 - span), "report")
         report = build_report(res, inputs)
-        progress(0.85, "writing")
+        curve_cols = computed.curves.table() if computed is not None else None
+        progress(span + 0.85 * (1.0 - span), "writing")
         results = {}
         for name, cols in (("DAILY", res.daily), ("SPELLS", res.spells), ("OPTIONS", res.table)):
             results[name] = outputs.write_features(self, parameters, context, name, cols)
+        if parameters.get(CURVES_OUT) not in (None, ""):
+            if curve_cols is not None:
+                results[CURVES_OUT] = outputs.write_features(self, parameters, context, CURVES_OUT, curve_cols)
+            else:
+                feedback.pushInfo(f"{CURVES_OUT} is written only when the curves are computed from SCENARIOS; "
+                                  "with a CURVES table given it is not written.")
         report_path = self.parameterAsFileOutput(parameters, "REPORT", context)
         if report_path:
             self.will_write(report_path)

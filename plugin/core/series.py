@@ -637,8 +637,8 @@ def match_regime(regimes, regime: str | None, parameter: str = "REGIME", where: 
     if not regime:
         if len(regimes) != 1:
             raise ChannelHabitatError(
-                f"{where} hold several regimes ({', '.join(regimes)}): name the one the flow series applies to",
-                parameter)
+                f"there are several regimes in {where} ({', '.join(regimes)}): name the one the flow series "
+                "applies to", parameter)
         return regimes[0]
     if regime in regimes:
         return regime

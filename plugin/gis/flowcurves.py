@@ -6,9 +6,9 @@ instead of a CURVES table. Both declare the same parameters and read them the sa
     flowcurves.add_curve_parameters(self)                  # SCENARIOS (+ REGIMES, PARALLEL_RUNS), the reach
                                                            # (CENTRELINE ...), the classes (SCHEME ...), WET_DEPTH
     rows, desc, workers = scenarioinput.read_scenario_parameters(self, parameters, context)
-    inputs = flowcurves.read_curve_inputs(self, parameters, context, feedback, rows)  # headers, reach, scheme
-    ... check everything else against inputs.units() / inputs.scheme.names ...
-    run = flowcurves.compute_curves(inputs, workers=workers, progress=..., log=feedback.pushInfo)
+    inputs = flowcurves.read_curve_inputs(self, parameters, context, feedback, rows, workers)  # headers, reach
+    ... check everything else against inputs.skeleton() (units and classes, no runs yet) ...
+    run = flowcurves.compute_curves(inputs, progress=..., log=feedback.pushInfo)
     run.curves   # core.curves.FlowHabitatCurves (reach, zones, segments x classes, every run)
     run.table    # scenariorun.TableRun: rows, results[i] = (RunAreas, (n_elements, outside_m2, unclassified_m2))
 
@@ -64,6 +64,7 @@ class CurveInputs:
     reach: object
     scheme: object
     wet_depth_m: float
+    workers: int = scenariorun.DEFAULT_WORKERS
 
     def units(self) -> list:
         """The scope units of the curves to come (reach, zones, segments)."""
@@ -75,14 +76,15 @@ class CurveInputs:
         return cv.FlowHabitatCurves(self.units(), self.scheme.names, {})
 
 
-def read_curve_inputs(alg, parameters, context, feedback, rows) -> CurveInputs:
+def read_curve_inputs(alg, parameters, context, feedback, rows,
+                      workers: int = scenariorun.DEFAULT_WORKERS) -> CurveInputs:
     """The runs' CRS and grids from their file headers (mixed CRS refused), the reach in that CRS,
-    the class scheme and the wet-depth threshold."""
+    the class scheme and the wet-depth threshold. ``workers``: runs worked on at the same time."""
     infos = scenariorun.preflight(rows)  # file headers: CRS and grids, mixed CRS refused
     reach = reachinput.read_reach_parameters(alg, parameters, context, feedback, target_crs_wkt=infos[0].crs_wkt)
     scheme = schemeinput.read_scheme_parameters(alg, parameters, context, feedback)
     wet = alg.parameterAsDouble(parameters, WET_DEPTH, context)
-    return CurveInputs(rows, infos, reach, scheme, wet)
+    return CurveInputs(rows, infos, reach, scheme, wet, workers)
 
 
 def rows_of_regime(rows, regime: str | None, parameter: str = REGIME) -> tuple:
@@ -112,16 +114,16 @@ def run_class_areas(run: scenariorun.RunInput, scheme) -> tuple:
     return areas, (run.field.n, ua.outside_m2, ua.unclassified_m2)
 
 
-def compute_curves(inputs: CurveInputs, *, workers: int = scenariorun.DEFAULT_WORKERS, progress=None,
-                   log=None) -> CurvesRun:
-    """Every row of ``inputs`` run through the scheme: the flow-habitat curves and the TableRun."""
+def compute_curves(inputs: CurveInputs, *, progress=None, log=None) -> CurvesRun:
+    """Every row of ``inputs`` run through the scheme (``inputs.workers`` at a time): the flow-habitat
+    curves and the TableRun. ``progress``: a core Progress; ``log(text)``: messages."""
     scheme = inputs.scheme
 
     def work(run):
         return run_class_areas(run, scheme)
 
     table = scenariorun.run_scenarios(inputs.rows, work, wet_depth_m=inputs.wet_depth_m, reach=inputs.reach,
-                                      workers=workers, infos=inputs.infos, progress=progress, log=log)
+                                      workers=inputs.workers, infos=inputs.infos, progress=progress, log=log)
     units = cv.scope_units(table.reach)
     curves = cv.FlowHabitatCurves.from_runs([res[0] for res in table.results], units, scheme.names)
     return CurvesRun(curves, table)

@@ -179,5 +179,5 @@ def test_habitatseries_bad_parameters(run_alg, tmp_path):
         run_alg("habitatseries", _params(tmp_path, BLOOM_CLASSES="pool"))
     with pytest.raises(QgsProcessingException, match="TARGET_STATEMENTS"):
         run_alg("habitatseries", _params(tmp_path, TARGET_STATEMENTS="middle: fast >= 10%"))
-    with pytest.raises(QgsProcessingException, match="ZONES: no unit 'middle'"):
-        run_alg("habitatseries", _params(tmp_path, ZONES="middle"))
+    with pytest.raises(QgsProcessingException, match="REPORT_UNITS: no unit 'middle'"):
+        run_alg("habitatseries", _params(tmp_path, REPORT_UNITS="middle"))

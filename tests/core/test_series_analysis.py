@@ -14,6 +14,7 @@ from plugin.core.curves import FlowHabitatCurves, Target
 from plugin.core.errors import ChannelHabitatError
 from plugin.core.series import (
     Criterion,
+    CurveUnits,
     CurveView,
     FlowSeries,
     WuaCurves,
@@ -21,6 +22,7 @@ from plugin.core.series import (
     alternative_delivery,
     analyse_series,
     bloom_criteria,
+    match_regime,
     parse_delivery_options,
 )
 
@@ -209,6 +211,34 @@ def test_curve_view_regime_units_classes():
     with pytest.raises(ChannelHabitatError, match="no class 'pool'") as e:
         v.resolve_classes("pool", "BLOOM_CLASSES")
     assert e.value.parameter == "BLOOM_CLASSES"
+
+
+def test_curve_units_check_names_before_any_run():
+    # The units and classes of a computation still to come (no regime, no runs): the same answers as a
+    # view of finished curves on the same units and classes.
+    from plugin.core.curves import ScopeUnit
+
+    units = [ScopeUnit(s, u, a, b) for s, u, a, b in UNIT_ROWS] + [ScopeUnit("segment", "1", 0.0, 1000.0)]
+    names = CurveUnits(FlowHabitatCurves(units, CLASSES, {}))
+    assert names.zone_names == ["upper", "lower"] and names.n_segments == 1
+    assert names.default_units() == ["reach", "upper", "lower"]
+    assert names.resolve_units("Segment 1; lower") == ["segment 1", "lower"]
+    assert names.resolve_classes("Very_Slow+fast", "BLOOM_CLASSES") == ("very slow", "fast")
+    with pytest.raises(ChannelHabitatError, match="no unit 'segment 2'") as e:
+        names.resolve_units("segment 2")
+    assert e.value.parameter == "REPORT_UNITS"
+    v = view()
+    assert names.resolve_units("LOWER, reach") == v.resolve_units("LOWER, reach")
+
+
+def test_match_regime():
+    assert match_regime(["weir"], "") == "weir"
+    assert match_regime(["weir", "natural"], " NATURAL ") == "natural"
+    with pytest.raises(ChannelHabitatError, match="several regimes in the scenario table") as e:
+        match_regime(["weir", "natural"], None, where="the scenario table")
+    assert e.value.parameter == "REGIME"
+    with pytest.raises(ChannelHabitatError, match=r"no regime 'lake' in the curves \(regimes: weir, natural\)"):
+        match_regime(["weir", "natural"], "lake")
 
 
 def test_wua_interpolated_and_checked():

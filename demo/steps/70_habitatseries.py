@@ -1,8 +1,9 @@
 """Demo: habitat through time on the invented daily flow year, with two ways to deliver 40 GL.
 
-Needs the invented flow year (sample_gis/generated/daily_flows.csv) and flowhabitat's CURVES table
-written by an earlier demo step (found in the demo output folder). Without either it says so and
-skips, rather than inventing curves.
+Needs the invented flow year (sample_gis/generated/daily_flows.csv). The weir regime uses flowhabitat's
+CURVES table written by an earlier demo step (found in the demo output folder); without it, its curves are
+computed from the scenario table instead. The lowered weir pool (a management action) is then run straight
+from the scenario table (SCENARIOS): only its 11 runs are read, and its curves are kept (CURVES_OUT).
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ from pathlib import Path
 import numpy as np
 
 TITLE = "Habitat through time: a flow year and two ways to deliver 40 GL (habitatseries)"
+ZONES = "0 upper, 12000 middle, 25000 lower"
 
 VOLUME_GL = 40.0
 HOLD_MLD = 9000.0  # the level the recession option holds up (ML/d), falling 1 % a day
@@ -70,26 +72,28 @@ def _options(flows_csv: Path) -> str:
             f"held recession: recession start={iso(s.dates[hold])} level={HOLD_MLD:g} fall=1")
 
 
+def _scenario_parameters(demo) -> dict:
+    """SCENARIOS and the reach, as in the flowhabitat step: buildreach's AXIS when an earlier step wrote
+    one, else the demo centreline read as digitised downstream -> upstream."""
+    folder = demo.out / "buildreach"
+    built = sorted(folder.glob("*axis*.gpkg")) if folder.is_dir() else []
+    axis = {"CENTRELINE": str(built[0])} if built else \
+        {"CENTRELINE": str(demo.sample / "centreline.gpkg"), "CENTRELINE_DIRECTION": 1}
+    return {"SCENARIOS": str(demo.scenarios), **axis, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": ZONES}
+
+
+def _outputs(demo, *folder) -> dict:
+    return {name: demo.path("habitatseries", *folder, file) for name, file in
+            (("DAILY", "daily.gpkg"), ("SPELLS", "spells.gpkg"), ("OPTIONS", "options.gpkg"),
+             ("REPORT", "report.html"))}
+
+
 def run(demo):
     flows = demo.sample / "daily_flows.csv"
     if not flows.exists():
         demo.log(f"  skipped: the invented flow year {flows} is not there (run `make sample`)")
         return []
-    curves = _find_curves(demo.out)
-    if curves is None:
-        demo.log("  skipped: no flowhabitat CURVES table in the demo output yet (the flowhabitat step writes "
-                 "it; habitatseries needs it and never invents curves)")
-        return []
-    demo.log(f"  curves: {curves}")
-    out = {
-        "DAILY": demo.path("habitatseries", "daily.gpkg"),
-        "SPELLS": demo.path("habitatseries", "spells.gpkg"),
-        "OPTIONS": demo.path("habitatseries", "options.gpkg"),
-        "REPORT": demo.path("habitatseries", "report.html"),
-    }
-    res = demo.run("habitatseries", {
-        "CURVES": str(curves),
-        "REGIME": "weir",
+    common = {
         "FLOWS": str(flows),
         "TARGET_STATEMENTS": TARGETS,
         "BLOOM_CLASSES": "very slow",
@@ -98,9 +102,29 @@ def run(demo):
         "ENV_VOLUME": VOLUME_GL,
         "VOLUME_UNIT": 1,  # GL
         "DELIVERY": _options(flows),
-        **out,
-    })
-    return [("Habitat through time — report", res["REPORT"]),
-            ("Options compared (OPTIONS)", res["OPTIONS"]),
-            ("Spells (SPELLS)", res["SPELLS"]),
-            ("Daily habitat (DAILY)", res["DAILY"])]
+    }
+    curves = _find_curves(demo.out)
+    if curves is not None:
+        demo.log(f"  weir: curves from {curves}")
+        source = {"CURVES": str(curves)}
+    elif demo.scenarios.exists():
+        demo.log("  weir: no flowhabitat CURVES table in the demo output; curves computed from the scenario table")
+        source = _scenario_parameters(demo)
+    else:
+        demo.log("  skipped: neither a flowhabitat CURVES table nor the scenario table (run `make sample`)")
+        return []
+    res = demo.run("habitatseries", {**source, "REGIME": "weir", **common, **_outputs(demo)})
+    items = [("Habitat through time — report", res["REPORT"]),
+             ("Options compared (OPTIONS)", res["OPTIONS"]),
+             ("Spells (SPELLS)", res["SPELLS"]),
+             ("Daily habitat (DAILY)", res["DAILY"])]
+    if not demo.scenarios.exists():
+        return items
+    # The lowered weir pool, straight from the scenario table: only its runs are read.
+    demo.log("  weir_lowered: curves computed from the scenario table (SCENARIOS), kept in CURVES_OUT")
+    low = demo.run("habitatseries", {**_scenario_parameters(demo), "REGIME": "weir_lowered", **common,
+                                     **_outputs(demo, "weir_lowered"),
+                                     "CURVES_OUT": demo.path("habitatseries", "weir_lowered", "curves.csv")})
+    return items + [("Lowered weir pool, curves from the scenario table — report", low["REPORT"]),
+                    ("Lowered weir pool: options compared (OPTIONS)", low["OPTIONS"]),
+                    ("Lowered weir pool: its curves (CURVES_OUT)", low["CURVES_OUT"])]

@@ -30,15 +30,25 @@ VOLUME_UNITS = ("ML", "GL")
 
 HELP = f"""
 <p>Turns a daily flow series for the reach into habitat through time, using the flow–habitat
-curves of <code>flowhabitat</code> (its CURVES table). For every day it interpolates the share of each
+curves of <code>flowhabitat</code> (its CURVES table), or computing them from a scenario table the way
+flowhabitat does. For every day it interpolates the share of each
 class in each zone, tests the targets, finds the <b>spells</b> in which each target is met and the
 <b>bloom-risk spells</b> in which very slow water covers more than a stated share of a zone, and
 compares ways of delivering a limited <b>environmental water volume</b> on top of the series.</p>
 <h3>Parameters</h3>
 <ul>
 <li><b>CURVES</b> — flowhabitat's CURVES table (layer or CSV): regime, q_mld, q_m3s, scope, unit,
-chainage_from_m, chainage_to_m, class, area_m2, wet_area_m2, percent.</li>
-<li><b>REGIME</b> — the regime the series applies to (empty: the only regime in CURVES).</li>
+chainage_from_m, chainage_to_m, class, area_m2, wet_area_m2, percent. Give CURVES <i>or</i> SCENARIOS,
+not both.</li>
+<li><b>SCENARIOS</b> — instead of CURVES: a scenario table (CSV or table layer, as in flowhabitat: regime,
+discharge, unit and the run files). Only the runs of REGIME are read; the curves are computed by flowhabitat's
+own code (classes, areas per reach, zone and segment). With it: <b>CENTRELINE</b>, <b>SEGMENT_LENGTH</b>,
+<b>ZONE_BREAKS</b> (and the advanced CENTRELINE_DIRECTION, SEGMENTS, ZONES: buildreach's segment and zone
+polygons), <b>SCHEME</b>, <b>CLASS_TABLE</b>, <b>CLASS_FILE</b>, <b>WET_DEPTH</b> (m, default 0.05) and
+<b>PARALLEL_RUNS</b> (advanced), all as in flowhabitat; they are ignored with CURVES. Units, classes and
+targets are checked against the reach and the scheme before any run is read.</li>
+<li><b>REGIME</b> — the regime the series applies to (case-insensitive; empty: the only regime in CURVES or
+the scenario table).</li>
 <li><b>FLOWS</b> — daily flow series CSV with a header: <code>date</code> (ISO YYYY-MM-DD),
 <code>discharge</code>, <code>unit</code> (ML/d or m3/s per row; or one column <code>q_mld</code> /
 <code>q_m3s</code>). Every day once: gaps, duplicate dates, empty or negative flows and unknown units
@@ -46,7 +56,7 @@ are refused, naming the first offending dates. Further columns are <i>alternativ
 in the row's unit.</li>
 <li><b>FLOW_UNIT</b> — unit of the discharge column when the file has no unit column.</li>
 <li><b>ALTERNATIVES</b> — which further columns are alternative series (comma-separated; empty = all).</li>
-<li><b>ZONES</b> — the units reported in DAILY and tested for bloom risk: zone names, <code>reach</code>,
+<li><b>REPORT_UNITS</b> — the units reported in DAILY and tested for bloom risk: zone names, <code>reach</code>,
 <code>segment N</code> (comma-separated; empty = the reach and every zone).</li>
 <li><b>TARGET_STATEMENTS</b> — statements as in flowhabitat, one per line or separated by ';':
 <code>lower: moderate+fast &gt;= 50%</code>. They become t1, t2, ... in the outputs.</li>
@@ -88,11 +98,16 @@ ladder: it may be longer), qualifies (length ≥ the minimum), mean_pct, min_pct
 volume_given_ml, added_peak_mld, delivery_start, delivery_end, record_days, outside_ladder_days,
 t<i>k</i>_met_days, t<i>k</i>_gain_days (against the base), t<i>k</i>_spells, t<i>k</i>_longest_days,
 bloom_&lt;unit&gt;_spells, bloom_&lt;unit&gt;_days, bloom_&lt;unit&gt;_longest_days, mean_wua_…_m2.</li>
+<li><b>CURVES_OUT</b> (optional, with SCENARIOS only) — the computed curves of REGIME as a CURVES table
+(flowhabitat's columns), to reuse as CURVES in later runs without reading the runs again.</li>
 <li><b>REPORT</b> — HTML: hydrographs, spells through time, class shares through time, the options
 side by side.</li>
 </ul>
 <h3>Method</h3>
-<p>A spell is a maximal run of consecutive days meeting a condition. Class shares are interpolated
+<p>With SCENARIOS, every run of the regime goes through flowhabitat's pipeline (wet elements, chainage on the
+axis once per grid or mesh, classes, class areas per unit; two runs at a time) and the result is the curves
+flowhabitat would write for that regime. A spell is a maximal run of consecutive days meeting a condition.
+Class shares are interpolated
 between the runs exactly as flowhabitat does: {METHOD}; a class set (moderate+fast) is one curve.
 Flows outside the runs are flagged and counted, never extrapolated; a series entirely outside them is
 refused. The flow series is taken as the flow through the reach on each day (no routing or losses).</p>

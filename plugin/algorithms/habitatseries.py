@@ -211,9 +211,9 @@ class HabitatSeries(ChannelHabitatAlgorithm):
         plan = flowcurves.read_curve_inputs(self, parameters, context, feedback, regime_rows, workers)
         others = [r for r in dict.fromkeys(r.regime for r in rows) if r != regime]
         feedback.pushInfo(
-            f"Curves computed from the scenario table {table_desc}: the {len(regime_rows)} runs of regime {regime} "
-            f"only" + (f" (the table's {len(rows) - len(regime_rows)} runs of {', '.join(others)} are not needed "
-                       "and not read)" if others else "") + ".")
+            f"Curves from the scenario table {table_desc}: only the {len(regime_rows)} runs of regime {regime} are "
+            "read" + (f" (the table's {len(rows) - len(regime_rows)} runs of {', '.join(others)} are not needed for "
+                      "this flow series)" if others else "") + ".")
         info = [("Flow-habitat curves", f"computed from the scenario table {table_desc}: {len(regime_rows)} runs of "
                  f"regime {regime}"),
                 ("Class scheme", f"{plan.scheme.name}: {', '.join(plan.scheme.names)}"),

@@ -179,10 +179,7 @@ by coverage union. The CRS must be projected, in metres.</p>
             progress(0.6, "report")
             report = build_report(analysis, habitat.run_summary(analysis, src, min_area), notes, subtitle=run_label)
         progress(0.8, "habitat patches")
-        ptc, footprints = job.result()
-        if footprints is not None:
-            seg_geoms = seg_geoms if seg_geoms is not None else footprints[0]
-            zone_geoms = zone_geoms if zone_geoms is not None else footprints[1]
+        ptc = job.patches()  # the wet footprints may still be joined while PATCHES is written
         if report is not None:
             report.notes(ptc.notes)
             report.note(f"PATCHES holds {len(ptc)} features: one multipolygon per class and segment.")
@@ -216,6 +213,10 @@ by coverage union. The CRS must be projected, in metres.</p>
                                                     ptc.geometries, crs, QgsWkbTypes.MultiPolygon)
         self._style(context, results["PATCHES"], habitatstyles.class_styler(scheme), "Habitat patches")
         progress(0.6)
+        footprints = job.footprints()
+        if footprints is not None:
+            seg_geoms = seg_geoms if seg_geoms is not None else footprints[0]
+            zone_geoms = zone_geoms if zone_geoms is not None else footprints[1]
         results["SEGMENT_STATS"] = outputs.write_features(self, parameters, context, "SEGMENT_STATS", seg_cols,
                                                           seg_geoms, crs, QgsWkbTypes.MultiPolygon)
         self._style(context, results["SEGMENT_STATS"], habitatstyles.stats_styler(scheme, "segment"),

@@ -197,11 +197,12 @@ def _sieved_codes(analysis, min_area_m2: float, progress):
 
 
 def _raster_pass(analysis, min_area_m2: float = 0.0, progress=None, threads: int = 2, patches: bool = True,
-                 footprints: bool = True):
+                 footprints: bool = True, on_patches=None):
     """(Patches or None, (segment geometries, zone geometries) or None) of a raster run in one pass over
     the segments: every segment's cells are cut into a small window once, and polygonized there per
     class (patches) and per zone (the wet footprint pieces, in grid coordinates), on ``threads`` threads
-    (GDAL and GEOS release the GIL); footprint pieces are joined per segment and per zone at the end."""
+    (GDAL and GEOS release the GIL); footprint pieces are joined per segment and per zone at the end.
+    ``on_patches(Patches)`` is called as soon as the patches are complete, before the joins."""
     progress = as_progress(progress)
     fld = analysis.field
     sup = fld.support
@@ -256,6 +257,9 @@ def _raster_pass(analysis, min_area_m2: float = 0.0, progress=None, threads: int
                 pieces[(k, z)] = mp
             done += 1
             progress(0.2 + 0.8 * done / max(len(todo), 1), "polygonizing habitat patches")
+        ptc = _assemble(analysis, rows, notes) if patches else None
+        if on_patches is not None:
+            on_patches(ptc)
         fp = None
         if footprints:
             seg_geoms = _union_pieces(pieces, n_seg, _grid_union, pool)
@@ -263,7 +267,7 @@ def _raster_pass(analysis, min_area_m2: float = 0.0, progress=None, threads: int
             world = list(pool.map(lambda g: None if g is None else _to_world(g, sup.transform),
                                   seg_geoms + zone_geoms))
             fp = (world[:n_seg], world[n_seg:])
-    return (_assemble(analysis, rows, notes) if patches else None), fp
+    return ptc, fp
 
 
 # ----------------------------------------------------------------------------------------------
@@ -404,32 +408,65 @@ def mesh_patches(analysis, min_area_m2: float = 0.0, progress=None, polygons=Non
     return _assemble(analysis, rows, notes)
 
 
+class PatchJob:
+    """Patches and wet footprints being computed in a background thread (:func:`start_patch_job`).
+
+    ``patches()`` waits for the patches only (the footprints may still be joined meanwhile),
+    ``footprints()`` for the footprints (None when not asked for), ``result()`` for both, as
+    (Patches, footprints)."""
+
+    def __init__(self, future, patches_future):
+        self._future = future
+        self._patches = patches_future
+
+    def patches(self) -> Patches:
+        return self._patches.result()
+
+    def footprints(self):
+        return self._future.result()[1]
+
+    def result(self):
+        return self._future.result()
+
+    def done(self) -> bool:
+        return self._future.done()
+
+
 def start_patch_job(analysis, min_area_m2: float = 0.0, polygons=None, footprints: bool = True,
-                    threads: int = 2, progress=None):
+                    threads: int = 2, progress=None) -> PatchJob:
     """Patches (and the wet footprints of segments and zones when ``footprints``) of a classified run,
     computed in a background thread -- GDAL polygonizing and GEOS unions release the GIL, so they run
-    while the statistics and the report are made. Returns a Future of (Patches, (segment geometries,
-    zone geometries) or None). ``progress`` is only asked whether to stop (no progress reports from the
+    while the statistics and the report are made. Returns a :class:`PatchJob` (``result()`` gives
+    (Patches, (segment geometries, zone geometries) or None); ``patches()`` is ready before the
+    footprints are joined). ``progress`` is only asked whether to stop (no progress reports from the
     background thread)."""
-    from concurrent.futures import ThreadPoolExecutor
+    from concurrent.futures import Future, ThreadPoolExecutor
 
     from ..core.errors import Progress
 
     stop = Progress(None, getattr(progress, "_cancelled", None)) if progress is not None else None
+    patches_ready = Future()
 
     def job():
-        if isinstance(analysis.field.support, GridSupport):  # one pass over the segment windows
-            return _raster_pass(analysis, min_area_m2, stop, threads, patches=True, footprints=footprints)
-        ptc = habitat_patches(analysis, min_area_m2, stop, threads, polygons)
-        if stop is not None:
-            stop.check()
-        fp = wet_footprints(analysis, threads, polygons) if footprints else None
-        return ptc, fp
+        try:
+            if isinstance(analysis.field.support, GridSupport):  # one pass over the segment windows
+                return _raster_pass(analysis, min_area_m2, stop, threads, patches=True, footprints=footprints,
+                                    on_patches=patches_ready.set_result)
+            ptc = habitat_patches(analysis, min_area_m2, stop, threads, polygons)
+            patches_ready.set_result(ptc)
+            if stop is not None:
+                stop.check()
+            fp = wet_footprints(analysis, threads, polygons) if footprints else None
+            return ptc, fp
+        except BaseException as exc:
+            if not patches_ready.done():
+                patches_ready.set_exception(exc)
+            raise
 
     pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="patches")
     future = pool.submit(job)
     pool.shutdown(wait=False)
-    return future
+    return PatchJob(future, patches_ready)
 
 
 def habitat_patches(analysis, min_area_m2: float = 0.0, progress=None, threads: int = 2,

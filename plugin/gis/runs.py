@@ -103,10 +103,11 @@ def _read_at(band, c0: int, r0: int, ncols: int, nrows: int, flat, rr, cc) -> np
     bx, by = band.GetBlockSize()
     if bx >= ncols or by <= 0 or flat.size == 0:
         return band.ReadAsArray(c0, r0, ncols, nrows).astype(np.float32, copy=False).ravel()[flat]
-    bcol = (cc + c0) // bx
-    brow = (rr + r0) // by
     nbx = (c0 + ncols - 1) // bx + 1
-    keys = np.unique(brow * nbx + bcol)
+    nby = (r0 + nrows - 1) // by + 1
+    occupied = np.zeros(nby * nbx, dtype=bool)
+    occupied[((rr + r0) // by) * nbx + (cc + c0) // bx] = True
+    keys = np.flatnonzero(occupied)  # the blocks holding cells, in order
     br, bc = np.divmod(keys, nbx)
     n_blocks = (((r0 + nrows - 1) // by - r0 // by + 1) * ((c0 + ncols - 1) // bx - c0 // bx + 1))
     if len(keys) > 0.7 * n_blocks:
@@ -157,7 +158,7 @@ def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, 
         dnd = dband.GetNoDataValue()
         bands = {k: ds.GetRasterBand(1) for k, ds in vel.items()}
         nds = {k: b.GetNoDataValue() for k, b in bands.items()}
-        idx_parts, d_parts = [], []
+        idx_parts, d_parts, row_parts, col_parts = [], [], [], []
         val_parts = {k: [] for k in bands}
         raw_min = np.inf
         r0, r1, c0, c1 = 0, rows, 0, cols
@@ -184,7 +185,9 @@ def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, 
             if flat.size == 0:
                 continue
             rr, cc = np.divmod(flat, ncols)
-            idx_parts.append((rr + start) * cols + (cc + c0))
+            row_parts.append(rr + start)
+            col_parts.append(cc + c0)
+            idx_parts.append(row_parts[-1] * cols + col_parts[-1])
             d_parts.append(d.ravel()[flat])
             del d, valid, wet
             for k, b in bands.items():
@@ -197,6 +200,9 @@ def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, 
         # GDAL 3.6 bands do not keep their dataset alive: free them first, also on an error.
         del dband, bands, b
     index = np.concatenate(idx_parts) if idx_parts else np.zeros(0, np.int64)
+    rr = np.concatenate(row_parts) if row_parts else np.zeros(0, np.int64)  # = divmod(index, cols)
+    cc = np.concatenate(col_parts) if col_parts else np.zeros(0, np.int64)
+    del row_parts, col_parts
     dep = np.concatenate(d_parts) if d_parts else np.zeros(0, np.float32)
     vals = {k: (np.concatenate(v) if v else np.zeros(0, np.float32)) for k, v in val_parts.items()}
     if "speed" in vals:
@@ -210,12 +216,11 @@ def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, 
             ok &= np.isfinite(vals[k])
     if not ok.all():
         notes.append(f"{int((~ok).sum())} wet cells had no velocity value and were left out.")
-        index, dep, spd = index[ok], dep[ok], spd[ok]
+        index, dep, spd, rr, cc = index[ok], dep[ok], spd[ok], rr[ok], cc[ok]
         vals = {k: a[ok] for k, a in vals.items()}
     check_values(dep, spd, depth_param=p["depth"], speed_param=p["speed"] if speed else p["u"],
                  raw_depth_min=raw_min if np.isfinite(raw_min) else None)
     x0, dx, _, y0, _, dy = gt
-    rr, cc = np.divmod(index, cols)
     fld = HydraulicField(
         x=x0 + (cc + 0.5) * dx, y=y0 + (rr + 0.5) * dy,
         area=np.full(index.size, abs(dx * dy)), depth=dep, speed=spd, crs_wkt=wkt,

@@ -221,11 +221,54 @@ def _run_percentiles(gathered, ends, q) -> np.ndarray:
         frac = h - j0
         k0 = j0.astype(np.int64)
         k1 = np.minimum(k0 + 1, x.size - 1)
-        x.partition(np.unique(np.concatenate([k0, k1])))
-        v0 = x[k0].astype(np.float64)
-        v1 = x[k1].astype(np.float64)
+        if x.size < _SELECT_FEW:
+            x.partition(np.unique(np.concatenate([k0, k1])))
+            v0 = x[k0].astype(np.float64)
+            v1 = x[k1].astype(np.float64)
+        else:
+            v0, v1 = _select_pairs(x, k0, np.where(frac > 0, k1, k0))
         out[gi] = v0 + (v1 - v0) * frac
     return out
+
+
+_SELECT_FEW = 20_000  # smaller groups: one partition at every needed rank (less Python per group)
+
+
+def _select_pairs(x, k0, k1):
+    """Values of rank k0 and k1 (0-based, in ascending order) of ``x`` (partitioned in place), as
+    float64. One partition at the interior ranks k0 only; a rank just after a partition point (k0 + 1)
+    is the smallest value of the block that follows it, rank 0 and the last rank the smallest and
+    largest of the first and last block (min/max are much cheaper than more partition points);
+    any other rank is selected inside its block. Where the interpolation weight is 0 pass k1 = k0
+    (the result v0 + (v1 - v0) * 0 does not depend on v1)."""
+    n = x.size
+    pts = np.unique(k0[(k0 > 0) & (k0 < n - 1)])
+    if pts.size:
+        x.partition(pts)
+    bounds = np.concatenate([[-1], pts, [n]])
+    found = {}
+
+    def at(r):
+        r = int(r)
+        if r in found:
+            return found[r]
+        i = int(np.searchsorted(pts, r))
+        if i < pts.size and pts[i] == r:
+            v = x[r]
+        else:
+            lo, hi = int(bounds[i]) + 1, int(bounds[i + 1])  # the block of ranks lo .. hi - 1 holding r
+            if r == lo:
+                v = x[lo:hi].min()
+            elif r == hi - 1:
+                v = x[lo:hi].max()
+            else:
+                block = x[lo:hi]
+                block.partition(r - lo)
+                v = block[r - lo]
+        found[r] = v
+        return v
+
+    return (np.array([at(r) for r in k0], dtype=np.float64), np.array([at(r) for r in k1], dtype=np.float64))
 
 
 def _common_runs(groupings, combo, sizes):
@@ -468,7 +511,9 @@ def summarise_groupings(speed, depth, area, codes, groupings, class_names, weigh
             x = vals.astype(np.float64)
             fin = np.isfinite(x)
             if fin.all():
-                c = float(np.dot(x, area) / area.sum()) if area.sum() > 0 else 0.0
+                # the weighted mean as a shift (einsum, not np.dot: BLAS would start threads that
+                # keep spinning on the other core for ~0.1 s after each call)
+                c = float(np.einsum("i,i->", x, area) / area.sum()) if area.sum() > 0 else 0.0
                 x -= c
                 a = area
             else:

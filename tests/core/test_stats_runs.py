@@ -71,3 +71,26 @@ def test_percentiles_only_where_wished():
     assert "v_p50_ms" in tables[3] and "d_p50_m" not in tables[3]
     with pytest.raises(ValueError):
         stats.summarise_groupings(v, v, np.ones(n), np.ones(n, np.uint8), gl, ["a"], 1.0, percentiles=[True])
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 5, 11, 100, 20_001, 50_000])
+def test_large_group_selection_equals_full_partition(n):
+    """The selection used for large groups (a partition at the interior ranks, min/max of the
+    neighbouring blocks) gives the values of a partition at every rank: ties, many equal values."""
+    q = stats._check_q(stats.PERCENTILES + (5.0, 33.3, 99.9))
+    for trial in range(6):
+        v = RNG.gamma(2.0, 0.15, n).astype(np.float32)
+        if trial % 2:
+            v = np.round(v, 1)  # heavy ties
+        if trial == 4:
+            v[:] = 0.25  # all equal
+        ref = np.percentile(v.astype(np.float64), q)
+        got = stats._run_percentiles(v.copy(), np.array([n]), q)[0]
+        np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12)
+        h = (n - 1.0) * q / 100.0
+        k0 = np.floor(h).astype(np.int64)
+        k1 = np.minimum(k0 + 1, n - 1)
+        y = v.copy()
+        y.partition(np.unique(np.r_[k0, k1]))
+        v0, v1 = y[k0].astype(np.float64), y[k1].astype(np.float64)
+        np.testing.assert_array_equal(got, v0 + (v1 - v0) * (h - np.floor(h)))

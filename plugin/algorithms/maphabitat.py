@@ -179,7 +179,7 @@ by coverage union. The CRS must be projected, in metres.</p>
             progress(0.6, "report")
             report = build_report(analysis, habitat.run_summary(analysis, src, min_area), notes, subtitle=run_label)
         progress(0.8, "habitat patches")
-        ptc = job.patches()  # the wet footprints may still be joined while PATCHES is written
+        ptc = job.patches()  # the wet footprints may still be joined meanwhile
         if report is not None:
             report.notes(ptc.notes)
             report.note(f"PATCHES holds {len(ptc)} features: one multipolygon per class and segment.")
@@ -191,14 +191,8 @@ by coverage union. The CRS must be projected, in metres.</p>
         progress(0.0, "writing outputs")
         crs = QgsCoordinateReferenceSystem.fromWkt(fld.crs_wkt)
         results = {"WET_AREA_M2": float(analysis.reach_stats["wet_area_m2"][0])}
-        if is_mesh:
-            if parameters.get("MESH_CLASSES") is not None:
-                face_cols = habitat.face_table(analysis)
-                results["MESH_CLASSES"] = outputs.write_features(
-                    self, parameters, context, "MESH_CLASSES", face_cols, polys, crs, QgsWkbTypes.Polygon,
-                    progress=progress.sub(0.0, 0.3))
-                self._style(context, results["MESH_CLASSES"], habitatstyles.class_styler(scheme), "Habitat classes")
-        elif classes is not None:
+        # first the file outputs that a failure removes again (the footprints are still being joined)
+        if classes is not None:
             path = classes.path
             self.will_write(path)
             qml = os.path.splitext(path)[0] + ".qml"
@@ -208,15 +202,25 @@ by coverage union. The CRS must be projected, in metres.</p>
             results["CLASSES"] = path
             outputs.style_on_load(context, path, func=habitatstyles.raster_styler(scheme),
                                   layer_name="Habitat classes")
+        if report is not None:
+            self.will_write(report_path)
+            report.write(report_path)
+            results["REPORT"] = report_path
+        footprints = job.footprints()  # everything is computed now
+        if footprints is not None:
+            seg_geoms = seg_geoms if seg_geoms is not None else footprints[0]
+            zone_geoms = zone_geoms if zone_geoms is not None else footprints[1]
         progress(0.3)
+        if is_mesh and parameters.get("MESH_CLASSES") is not None:
+            face_cols = habitat.face_table(analysis)
+            results["MESH_CLASSES"] = outputs.write_features(
+                self, parameters, context, "MESH_CLASSES", face_cols, polys, crs, QgsWkbTypes.Polygon,
+                progress=progress.sub(0.3, 0.5))
+            self._style(context, results["MESH_CLASSES"], habitatstyles.class_styler(scheme), "Habitat classes")
         results["PATCHES"] = outputs.write_features(self, parameters, context, "PATCHES", ptc.columns,
                                                     ptc.geometries, crs, QgsWkbTypes.MultiPolygon)
         self._style(context, results["PATCHES"], habitatstyles.class_styler(scheme), "Habitat patches")
         progress(0.6)
-        footprints = job.footprints()
-        if footprints is not None:
-            seg_geoms = seg_geoms if seg_geoms is not None else footprints[0]
-            zone_geoms = zone_geoms if zone_geoms is not None else footprints[1]
         results["SEGMENT_STATS"] = outputs.write_features(self, parameters, context, "SEGMENT_STATS", seg_cols,
                                                           seg_geoms, crs, QgsWkbTypes.MultiPolygon)
         self._style(context, results["SEGMENT_STATS"], habitatstyles.stats_styler(scheme, "segment"),
@@ -224,10 +228,6 @@ by coverage union. The CRS must be projected, in metres.</p>
         results["ZONE_STATS"] = outputs.write_features(self, parameters, context, "ZONE_STATS", zone_cols,
                                                        zone_geoms, crs, QgsWkbTypes.MultiPolygon)
         self._style(context, results["ZONE_STATS"], habitatstyles.stats_styler(scheme, "zone"), "Zone statistics")
-        if report is not None:
-            self.will_write(report_path)
-            report.write(report_path)
-            results["REPORT"] = report_path
         del analysis, ptc, fld, location, polys
         memory.release()
         progress(1.0)

@@ -80,17 +80,23 @@ def _assemble(analysis, rows, notes) -> Patches:
 
 
 def _dissolve_parts(polys, labels):
-    """{label: (MultiPolygon, n_parts)} from polygons that share no edge within a label."""
+    """{label: (MultiPolygon, n_parts)} from polygons that share no edge within a label.
+
+    The polygons of one label are 4-connected components of a raster (GDAL Polygonize): their
+    interiors are disjoint and their boundaries meet at cell corners at most, so a MultiPolygon of
+    valid polygons is valid. Only the polygons are checked (cheaper than checking the MultiPolygon);
+    a label with an invalid polygon gets its MultiPolygon repaired (make_valid)."""
     out = {}
     if len(polys) == 0:
         return out
     order = np.argsort(labels, kind="stable")
     labels = labels[order]
     polys = polys[order]
+    valid = shapely.is_valid(polys)
     bounds = np.flatnonzero(np.diff(labels)) + 1
-    for chunk, lab in zip(np.split(polys, bounds), labels[np.r_[0, bounds]]):
+    for chunk, ok, lab in zip(np.split(polys, bounds), np.split(valid, bounds), labels[np.r_[0, bounds]]):
         mp = shapely.multipolygons(chunk)
-        if not shapely.is_valid(mp):
+        if not ok.all() and not shapely.is_valid(mp):
             mp = _polygonal(shapely.make_valid(mp))
         out[int(lab)] = (mp, len(chunk))
     return out

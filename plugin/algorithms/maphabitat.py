@@ -131,33 +131,37 @@ by coverage union. The CRS must be projected, in metres.</p>
             feedback.pushWarning(crs_note)
         scheme = schemeinput.read_scheme_parameters(self, parameters, context, feedback)
         min_area = self.parameterAsDouble(parameters, MIN_PATCH_AREA, context)
-        progress = self.progress(feedback, 0.0, 0.25)
-        progress(0.0, "reading the run")
-        fld, src = run.result()
-        memory.release()  # the readers' buffers and GDAL's block cache are free again: hand them back
-        run_label = fld.name or src.label
-        is_mesh = isinstance(fld.support, MeshSupport)
-        codes = scheme.classify(fld.depth, fld.speed)
-        classes = None  # the CLASSES GeoTIFF is encoded in the background, moved into place when written
-        classes_path = None if is_mesh else self.parameterAsOutputLayer(parameters, "CLASSES", context)
+        # the CLASSES GeoTIFF: classes computed and encoded in the background as soon as the run is read,
+        # moved into place when the outputs are written
+        classes = None
+        classes_path = self.parameterAsOutputLayer(parameters, "CLASSES", context) if run.is_raster else None
         if classes_path:
-            classes = classraster.start_class_raster(classes_path, fld, codes, scheme, run_label)
+            classes = classraster.start_class_raster(classes_path, run.field_future, None, scheme, None)
             for p in classes.temporary_paths:
                 self.will_write(p)
         try:
+            progress = self.progress(feedback, 0.0, 0.25)
+            progress(0.0, "reading the run")
+            cells = run.cells()  # where the wet cells are: located while their velocities are read
+            progress = self.progress(feedback, 0.25, 0.9)
+            progress(0.0, "locating the run along the reach")
+            location = locate_field(reach, cells)
+            fld, src = run.result()
+            location = run.align(location, cells, fld)
+            del cells
+            memory.release()  # the readers' buffers and GDAL's block cache are free again: hand them back
+            codes = classes.codes() if classes is not None else scheme.classify(fld.depth, fld.speed)
             return self._compute(parameters, context, feedback, fld, src, reach, scheme, codes, min_area, crs_note,
-                                 run_label, classes)
+                                 fld.name or src.label, classes, location)
         except BaseException:
             if classes is not None:
                 classes.discard()
             raise
 
     def _compute(self, parameters, context, feedback, fld, src, reach, scheme, codes, min_area, crs_note,
-                 run_label, classes):
+                 run_label, classes, location):
         # --- compute ------------------------------------------------------------------------------
         progress = self.progress(feedback, 0.25, 0.9)
-        progress(0.0, "locating the run along the reach")
-        location = locate_field(reach, fld)
         analysis = habitat.classify_run(fld, reach, scheme, location=location, progress=progress.sub(0.2, 0.3),
                                         codes=codes)
         memory.release()

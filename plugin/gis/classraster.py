@@ -1,12 +1,13 @@
 """The class GeoTIFF of a raster run, encoded in the background and moved into place when written.
 
 ``start_class_raster(path, field, codes, scheme, run_label)`` builds the class grid (codes at the wet
-cells, 0 = dry = nodata) and encodes it (tiled, DEFLATE, colour table, class names and rules in the
-band's metadata: ``gis/geotiff.write``) into a hidden temporary file beside ``path``, in a background
-thread (GDAL compresses with Python's lock released), so the algorithm computes its statistics and
-patches meanwhile. ``ClassRaster.finish()`` waits for it and renames the file (and its PAM side file)
-into place: outputs still appear only once everything is computed, and ``discard()`` (or a failed
-run, which removes the paths given to ``register``) leaves nothing behind.
+cells, 0 = dry = nodata; ``field`` may still be being read, and the codes computed there) and encodes
+it (tiled, DEFLATE, colour table, class names and rules in the band's metadata: ``gis/geotiff.write``)
+into a hidden temporary file beside ``path``, in a background thread (GDAL compresses with Python's
+lock released), so the algorithm locates and computes its statistics and patches meanwhile.
+``ClassRaster.finish()`` waits for it and renames the file (and its PAM side file) into place: outputs
+still appear only once everything is computed, and ``discard()`` (or a failed run, which removes the
+registered ``temporary_paths``) leaves nothing behind.
 """
 
 from __future__ import annotations
@@ -38,10 +39,15 @@ def raster_metadata(scheme, run_label: str) -> dict:
 class ClassRaster:
     """A class GeoTIFF being encoded in the background (see the module doc)."""
 
-    def __init__(self, path: str, tmp: str, future):
+    def __init__(self, path: str, tmp: str, future, codes_future=None):
         self.path = path
         self.tmp = tmp
         self._future = future
+        self._codes = codes_future
+
+    def codes(self) -> np.ndarray:
+        """The class code of every element (computed in the background when not given)."""
+        return self._codes.result()
 
     @property
     def temporary_paths(self) -> tuple:
@@ -67,23 +73,35 @@ class ClassRaster:
                 os.remove(p)
 
 
-def start_class_raster(path: str, field, codes, scheme, run_label: str = "") -> ClassRaster:
-    """Encode the class GeoTIFF of a raster run in a background thread (see the module doc)."""
+def start_class_raster(path: str, field, codes, scheme, run_label: str | None = "") -> ClassRaster:
+    """Encode the class GeoTIFF of a raster run in a background thread (see the module doc).
+
+    ``field`` may be a Future of the HydraulicField (the encoding starts once it is read); ``codes``
+    None: ``scheme.classify(depth, speed)`` in the background (``ClassRaster.codes()`` gives them).
+    ``run_label`` None: the field's name."""
+    from concurrent.futures import Future
+
     d = os.path.dirname(os.path.abspath(path)) or "."
     os.makedirs(d, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=".partial-classes-", suffix=".tif", dir=d)
     os.close(fd)
-    codes = np.asarray(codes, dtype=np.uint8)
     colours = {i + 1: c for i, c in enumerate(scheme.colours)}
     description = f"habitat class ({scheme.name})"
-    metadata = raster_metadata(scheme, run_label)
-    transform, crs_wkt = field.support.transform, field.crs_wkt
+    codes_ready = Future()
 
     def job():
-        return geotiff.write(tmp, class_grid(field, codes), transform, crs_wkt, nodata=0, colours=colours,
+        try:
+            fld = field.result() if isinstance(field, Future) else field
+            c = scheme.classify(fld.depth, fld.speed) if codes is None else np.asarray(codes, dtype=np.uint8)
+            codes_ready.set_result(c)
+        except BaseException as exc:
+            codes_ready.set_exception(exc)
+            raise
+        metadata = raster_metadata(scheme, fld.name if run_label is None else run_label)
+        return geotiff.write(tmp, class_grid(fld, c), fld.support.transform, fld.crs_wkt, nodata=0, colours=colours,
                              description=description, metadata=metadata)
 
     pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="class-raster")
     future = pool.submit(job)
     pool.shutdown(wait=False)
-    return ClassRaster(path, tmp, future)
+    return ClassRaster(path, tmp, future, codes_ready)

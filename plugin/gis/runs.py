@@ -130,106 +130,164 @@ def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, 
                     wet_depth_m: float = DEFAULT_WET_DEPTH_M, name: str = "", params: dict | None = None,
                     progress=None, bbox=None) -> HydraulicField:
     """A HydraulicField from rasters on (or resampled onto) the depth raster's grid."""
-    p = params or RunSource().params
-    progress = as_progress(progress)
-    if not depth:
-        raise ChannelHabitatError("give a depth raster (or a mesh layer instead of rasters)", p["depth"])
-    if not speed and not (u and v):
-        raise ChannelHabitatError("give a speed raster, or both u and v velocity rasters",
-                                  p["speed"])
-    notes = []
-    dds = _open(depth, p["depth"])
-    gt, shape, wkt = _grid_of(dds)
-    if gt[2] != 0 or gt[4] != 0:
-        raise ChannelHabitatError("rotated rasters are not supported; warp it north-up first", p["depth"])
-    if gt[5] > 0:
-        raise ChannelHabitatError("south-up rasters are not supported; warp the raster north-up", p["depth"])
-    vel = {}
-    for key, path in (("speed", speed), ("u", u), ("v", v)):
-        if path:
-            vel[key] = _aligned(_open(path, p[key]), dds, p[key], p["depth"], notes)
-    if "speed" in vel and not (u and v):
-        vel.pop("u", None)
-        vel.pop("v", None)
-    rows, cols = shape
-    dband = dds.GetRasterBand(1)
-    bands, b = {}, None
-    try:
-        dnd = dband.GetNoDataValue()
-        bands = {k: ds.GetRasterBand(1) for k, ds in vel.items()}
-        nds = {k: b.GetNoDataValue() for k, b in bands.items()}
-        idx_parts, d_parts, row_parts, col_parts = [], [], [], []
-        val_parts = {k: [] for k in bands}
-        raw_min = np.inf
+    reader = RasterRunReader(depth, speed, u, v, wet_depth_m, name, params, progress, bbox)
+    reader.read_depth()
+    return reader.read_velocity()
+
+
+class RasterRunReader:
+    """A raster run read in two steps: ``read_depth()`` reads the depth raster in strips and returns the
+    wet cells (where they are: x, y, area, depth; speed still NaN), ``read_velocity()`` then reads the
+    velocity rasters at those cells (only the blocks that hold them) and returns the run's
+    HydraulicField. Between the two, an algorithm can already locate the cells along its reach.
+    ``read_raster_run`` does both at once. Rasters are opened (and the inputs checked) on creation."""
+
+    def __init__(self, depth: str, speed: str | None = None, u: str | None = None, v: str | None = None,
+                 wet_depth_m: float = DEFAULT_WET_DEPTH_M, name: str = "", params: dict | None = None,
+                 progress=None, bbox=None):
+        p = params or RunSource().params
+        self.params = p
+        self.progress = as_progress(progress)
+        if not depth:
+            raise ChannelHabitatError("give a depth raster (or a mesh layer instead of rasters)", p["depth"])
+        if not speed and not (u and v):
+            raise ChannelHabitatError("give a speed raster, or both u and v velocity rasters",
+                                      p["speed"])
+        self.depth_path, self.speed_path = depth, speed
+        self.wet_depth_m = wet_depth_m
+        self.name = name or os.path.basename(depth)
+        self.notes = []
+        self._dds = _open(depth, p["depth"])
+        self.gt, self.shape, self.crs_wkt = _grid_of(self._dds)
+        if self.gt[2] != 0 or self.gt[4] != 0:
+            raise ChannelHabitatError("rotated rasters are not supported; warp it north-up first", p["depth"])
+        if self.gt[5] > 0:
+            raise ChannelHabitatError("south-up rasters are not supported; warp the raster north-up", p["depth"])
+        vel = {}
+        for key, path in (("speed", speed), ("u", u), ("v", v)):
+            if path:
+                vel[key] = _aligned(_open(path, p[key]), self._dds, p[key], p["depth"], self.notes)
+        if "speed" in vel and not (u and v):
+            vel.pop("u", None)
+            vel.pop("v", None)
+        self._vel = vel
+        rows, cols = self.shape
         r0, r1, c0, c1 = 0, rows, 0, cols
         if bbox is not None:  # (xmin, ymin, xmax, ymax) restricts the read window
-            x0, dx, _, y0, _, dy = gt
+            x0, dx, _, y0, _, dy = self.gt
             c0 = max(int(np.floor((bbox[0] - x0) / dx)), 0)
             c1 = min(int(np.ceil((bbox[2] - x0) / dx)), cols)
             r0 = max(int(np.floor((bbox[3] - y0) / dy)), 0)
             r1 = min(int(np.ceil((bbox[1] - y0) / dy)), rows)
-        ncols = max(c1 - c0, 0)
-        strip_rows = max(256, (STRIP_CELLS // max(ncols, 1)) // 256 * 256)
-        for start in range(r0, r1, strip_rows):
-            progress((start - r0) / max(r1 - r0, 1), "reading rasters")
-            n = min(strip_rows, r1 - start)
-            d = dband.ReadAsArray(c0, start, ncols, n)
-            d = d.astype(np.float32, copy=False)
-            valid = np.isfinite(d)
-            if dnd is not None and np.isfinite(dnd):
-                valid &= d != dnd
-            if valid.any():
-                raw_min = min(raw_min, float(d[valid].min()))
-            wet = valid & (d >= wet_depth_m)
-            flat = np.flatnonzero(wet)
-            if flat.size == 0:
-                continue
-            rr, cc = np.divmod(flat, ncols)
-            row_parts.append(rr + start)
-            col_parts.append(cc + c0)
-            idx_parts.append(row_parts[-1] * cols + col_parts[-1])
-            d_parts.append(d.ravel()[flat])
-            del d, valid, wet
-            for k, b in bands.items():
-                a = _read_at(b, c0, start, ncols, n, flat, rr, cc)
-                nd = nds[k]
-                if nd is not None and np.isfinite(nd):
-                    a = np.where(a == nd, np.nan, a)
-                val_parts[k].append(a)
-    finally:
-        # GDAL 3.6 bands do not keep their dataset alive: free them first, also on an error.
-        del dband, bands, b
-    index = np.concatenate(idx_parts) if idx_parts else np.zeros(0, np.int64)
-    rr = np.concatenate(row_parts) if row_parts else np.zeros(0, np.int64)  # = divmod(index, cols)
-    cc = np.concatenate(col_parts) if col_parts else np.zeros(0, np.int64)
-    del row_parts, col_parts
-    dep = np.concatenate(d_parts) if d_parts else np.zeros(0, np.float32)
-    vals = {k: (np.concatenate(v) if v else np.zeros(0, np.float32)) for k, v in val_parts.items()}
-    if "speed" in vals:
-        spd = vals["speed"]
-    else:
-        spd = np.hypot(vals["u"], vals["v"]).astype(np.float32)
-    # Wet cells without a velocity value (velocity nodata where depth is wet) are dropped, counted.
-    ok = np.isfinite(spd)
-    for k in ("u", "v"):
-        if k in vals:
-            ok &= np.isfinite(vals[k])
-    if not ok.all():
-        notes.append(f"{int((~ok).sum())} wet cells had no velocity value and were left out.")
-        index, dep, spd, rr, cc = index[ok], dep[ok], spd[ok], rr[ok], cc[ok]
-        vals = {k: a[ok] for k, a in vals.items()}
-    check_values(dep, spd, depth_param=p["depth"], speed_param=p["speed"] if speed else p["u"],
-                 raw_depth_min=raw_min if np.isfinite(raw_min) else None)
-    x0, dx, _, y0, _, dy = gt
-    fld = HydraulicField(
-        x=x0 + (cc + 0.5) * dx, y=y0 + (rr + 0.5) * dy,
-        area=np.full(index.size, abs(dx * dy)), depth=dep, speed=spd, crs_wkt=wkt,
-        support=GridSupport(gt, shape, index.astype(np.int64)),
-        u=vals.get("u"), v=vals.get("v"), name=name or os.path.basename(depth),
-        wet_depth_m=wet_depth_m, notes=notes)
-    progress(1.0)
-    del dds, vel
-    return fld
+        self._window = (r0, r1, c0, max(c1 - c0, 0))
+        self._strips = []  # (first row, rows, wet cells' flat positions, their rows and columns in the strip)
+        self._raw_min = np.inf
+        self._cells = None
+
+    def read_depth(self) -> HydraulicField:
+        """The wet cells (depth finite, not nodata, >= the wet depth) with x, y, area and depth; their
+        speed is NaN until :meth:`read_velocity`. Negative depths are refused here."""
+        p, progress = self.params, self.progress
+        r0, r1, c0, ncols = self._window
+        rows, cols = self.shape
+        wet_depth_m = self.wet_depth_m
+        idx_parts, d_parts, row_parts, col_parts = [], [], [], []
+        raw_min = np.inf
+        dband = self._dds.GetRasterBand(1)
+        try:
+            dnd = dband.GetNoDataValue()
+            strip_rows = max(256, (STRIP_CELLS // max(ncols, 1)) // 256 * 256)
+            for start in range(r0, r1, strip_rows):
+                progress(0.8 * (start - r0) / max(r1 - r0, 1), "reading rasters")
+                n = min(strip_rows, r1 - start)
+                d = dband.ReadAsArray(c0, start, ncols, n)
+                d = d.astype(np.float32, copy=False)
+                valid = np.isfinite(d)
+                if dnd is not None and np.isfinite(dnd):
+                    valid &= d != dnd
+                if valid.any():
+                    raw_min = min(raw_min, float(d[valid].min()))
+                wet = valid & (d >= wet_depth_m)
+                flat = np.flatnonzero(wet)
+                if flat.size == 0:
+                    continue
+                rr, cc = np.divmod(flat, ncols)
+                self._strips.append((start, n, flat, rr, cc))
+                row_parts.append(rr + start)
+                col_parts.append(cc + c0)
+                idx_parts.append(row_parts[-1] * cols + col_parts[-1])
+                d_parts.append(d.ravel()[flat])
+                del d, valid, wet
+        finally:
+            del dband  # GDAL 3.6 bands do not keep their dataset alive: free them first
+        self._raw_min = raw_min
+        index = np.concatenate(idx_parts) if idx_parts else np.zeros(0, np.int64)
+        rr = np.concatenate(row_parts) if row_parts else np.zeros(0, np.int64)  # = divmod(index, cols)
+        cc = np.concatenate(col_parts) if col_parts else np.zeros(0, np.int64)
+        del row_parts, col_parts
+        dep = np.concatenate(d_parts) if d_parts else np.zeros(0, np.float32)
+        # the depth checks now (the velocity checks follow in read_velocity)
+        check_values(dep, np.zeros(0, np.float32), depth_param=p["depth"],
+                     raw_depth_min=raw_min if np.isfinite(raw_min) else None)
+        x0, dx, _, y0, _, dy = self.gt
+        self._cells = HydraulicField(
+            x=x0 + (cc + 0.5) * dx, y=y0 + (rr + 0.5) * dy,
+            area=np.full(index.size, abs(dx * dy)), depth=dep, speed=np.full(index.size, np.nan, np.float32),
+            crs_wkt=self.crs_wkt, support=GridSupport(self.gt, self.shape, index.astype(np.int64)),
+            name=self.name, wet_depth_m=wet_depth_m, notes=list(self.notes))
+        return self._cells
+
+    def read_velocity(self) -> HydraulicField:
+        """The run: the wet cells with their velocities; wet cells without a velocity value (velocity
+        nodata where depth is wet) are dropped, and said. Closes the rasters."""
+        if self._cells is None:
+            self.read_depth()
+        p, progress = self.params, self.progress
+        r0, r1, c0, ncols = self._window
+        bands, b = {}, None
+        try:
+            bands = {k: ds.GetRasterBand(1) for k, ds in self._vel.items()}
+            nds = {k: b.GetNoDataValue() for k, b in bands.items()}
+            val_parts = {k: [] for k in bands}
+            for i, (start, n, flat, rr, cc) in enumerate(self._strips):
+                progress(0.8 + 0.2 * i / max(len(self._strips), 1), "reading rasters")
+                for k, b in bands.items():
+                    a = _read_at(b, c0, start, ncols, n, flat, rr, cc)
+                    nd = nds[k]
+                    if nd is not None and np.isfinite(nd):
+                        a = np.where(a == nd, np.nan, a)
+                    val_parts[k].append(a)
+        finally:
+            # GDAL 3.6 bands do not keep their dataset alive: free them first, also on an error.
+            del bands, b
+            self._strips = []
+            self._vel = {}
+            self._dds = None
+        cells = self._cells
+        notes = list(self.notes)
+        vals = {k: (np.concatenate(v) if v else np.zeros(0, np.float32)) for k, v in val_parts.items()}
+        if "speed" in vals:
+            spd = vals["speed"]
+        else:
+            spd = np.hypot(vals["u"], vals["v"]).astype(np.float32)
+        index, x, y, area, dep = cells.support.index, cells.x, cells.y, cells.area, cells.depth
+        # Wet cells without a velocity value (velocity nodata where depth is wet) are dropped, counted.
+        ok = np.isfinite(spd)
+        for k in ("u", "v"):
+            if k in vals:
+                ok &= np.isfinite(vals[k])
+        if not ok.all():
+            notes.append(f"{int((~ok).sum())} wet cells had no velocity value and were left out.")
+            index, x, y, area, dep, spd = index[ok], x[ok], y[ok], area[ok], dep[ok], spd[ok]
+            vals = {k: a[ok] for k, a in vals.items()}
+        check_values(dep, spd, depth_param=p["depth"], speed_param=p["speed"] if self.speed_path else p["u"],
+                     raw_depth_min=self._raw_min if np.isfinite(self._raw_min) else None)
+        fld = HydraulicField(
+            x=x, y=y, area=area, depth=dep, speed=spd, crs_wkt=self.crs_wkt,
+            support=GridSupport(self.gt, self.shape, index), u=vals.get("u"), v=vals.get("v"),
+            name=self.name, wet_depth_m=self.wet_depth_m, notes=notes)
+        progress(1.0)
+        return fld
 
 
 # ------------------------------------------------------------------------------------------

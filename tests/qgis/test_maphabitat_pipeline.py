@@ -90,3 +90,63 @@ def test_a_failing_run_leaves_no_file_behind(run_alg, tmp_path):
                                "SEGMENT_STATS": str(out / "s.gpkg"), "ZONE_STATS": str(out / "z.gpkg"),
                                "REPORT": str(out / "r.html")})
     assert list(out.iterdir()) == []
+
+
+def test_two_step_read_and_locations_of_dropped_cells(provider, tmp_path):
+    """Wet cells without a velocity value are dropped after the cells were located: the location of
+    every remaining cell is the one computed on the final field directly."""
+    from plugin.core.reach import Reach, ReachAxis, clear_locate_cache, locate_field
+    from plugin.gis.runs import RasterRunReader
+
+    gt, x, y = hc.grid()
+    inside = (x > hc.X0) & (x < hc.X0 + hc.LENGTH) & (y > hc.Y0) & (y < hc.Y0 + hc.WIDTH)
+    depth = hc.write_tif(tmp_path / "d.tif", np.where(inside, hc.depth_of(x, y), np.nan), gt)
+    s = np.where(inside, hc.speed_of(x, y), np.nan)
+    s[::7, ::5] = np.nan  # wet cells without a velocity value
+    speed = hc.write_tif(tmp_path / "s.tif", s, gt)
+    reader = RasterRunReader(depth, speed)
+    cells = reader.read_depth()
+    assert np.isnan(cells.speed).all()
+    fld = reader.read_velocity()
+    ref = read_raster_run(depth, speed)
+    for k in ("x", "y", "area", "depth", "speed"):
+        np.testing.assert_array_equal(getattr(fld, k), getattr(ref, k))
+    assert 0 < fld.n < cells.n and any("no velocity value" in n for n in fld.notes)
+    # independent: the cells are the depth raster's wet cells, the field those with a speed too
+    d_arr = gdal.Open(depth).ReadAsArray()
+    wet = np.isfinite(d_arr) & (d_arr != -9999.0) & (d_arr >= 0.05)
+    assert cells.n == int(wet.sum()) and fld.n == int((wet & np.isfinite(s)).sum())
+    axis = ReachAxis([hc.X0 - 1.0, hc.X0 + hc.LENGTH + 1.0], [hc.Y0 + hc.WIDTH / 2] * 2, cells.crs_wkt)
+    reach = Reach(axis, [axis.start_m, axis.end_m], [axis.start_m, axis.end_m], ["all"])
+    clear_locate_cache()
+    loc = runprefetch.RunRead.align(locate_field(reach, cells), cells, fld)
+    clear_locate_cache()
+    direct = locate_field(reach, fld)
+    np.testing.assert_array_equal(loc.chainage, direct.chainage)
+    np.testing.assert_array_equal(loc.offset, direct.offset)
+    np.testing.assert_allclose(loc.chainage, fld.x - (hc.X0 - 1.0), atol=1e-9)  # a straight axis along x
+
+
+def test_class_raster_from_a_field_being_read(provider, tmp_path):
+    from concurrent.futures import Future
+
+    r = hc.write_rasters(tmp_path)
+    fld = read_raster_run(r["depth"], r["speed"])
+    scheme = velocity_preset()
+    pending = Future()
+    job = classraster.start_class_raster(str(tmp_path / "c.tif"), pending, None, scheme, None)
+    pending.set_result(fld)  # the field arrives later
+    np.testing.assert_array_equal(job.codes(), scheme.classify(fld.depth, fld.speed))
+    job.finish()
+    ds = gdal.Open(str(tmp_path / "c.tif"))
+    assert ds.GetMetadata()["run"] == fld.name
+    grid = ds.GetRasterBand(1).ReadAsArray()
+    assert int((grid > 0).sum()) == fld.n
+    # a read that fails: the job fails, discard leaves nothing
+    failed = Future()
+    job2 = classraster.start_class_raster(str(tmp_path / "x" / "c2.tif"), failed, None, scheme, None)
+    failed.set_exception(RuntimeError("read failed"))
+    with pytest.raises(RuntimeError):
+        job2.codes()
+    job2.discard()
+    assert list((tmp_path / "x").iterdir()) == []

@@ -34,10 +34,11 @@ Variants
                of the grid is cached), outputs overwritten.
   maphabitat phases: the same steps called directly (no Processing), timed one by one, one after the
                other. In the algorithm several overlap: the rasters are read in a background thread
-               while the centreline is read; the CLASSES GeoTIFF is encoded, and patches and wet
-               footprints are polygonized, in background threads while locating, statistics and the
-               report run; locating and the statistics use 2 threads themselves. So the sum of the
-               phases is more than the run's wall time, and less than its CPU time.
+               while the centreline is read, the depth raster first, so the wet cells are located
+               while the velocities are read; the classes are computed and the CLASSES GeoTIFF
+               encoded in the background meanwhile; patches and wet footprints are polygonized in
+               background threads (2) while the statistics (1 thread) and the report are made;
+               locating uses 2 threads. So the sum of the phases is more than the run's wall time.
 """
 
 from __future__ import annotations

@@ -143,13 +143,14 @@ by coverage union. The CRS must be projected, in metres.</p>
             progress = self.progress(feedback, 0.0, 0.25)
             progress(0.0, "reading the run")
             cells = run.cells()  # where the wet cells are: located while their velocities are read
+            memory.release()  # the depth raster's buffers and GDAL blocks are free again: hand them back
             progress = self.progress(feedback, 0.25, 0.9)
             progress(0.0, "locating the run along the reach")
             location = locate_field(reach, cells)
             fld, src = run.result()
             location = run.align(location, cells, fld)
             del cells
-            memory.release()  # the readers' buffers and GDAL's block cache are free again: hand them back
+            memory.release()  # and those of the velocity rasters and of locating
             codes = classes.codes() if classes is not None else scheme.classify(fld.depth, fld.speed)
             return self._compute(parameters, context, feedback, fld, src, reach, scheme, codes, min_area, crs_note,
                                  fld.name or src.label, classes, location)

@@ -112,18 +112,23 @@ def _read_at(band, c0: int, r0: int, ncols: int, nrows: int, flat, rr, cc) -> np
     n_blocks = (((r0 + nrows - 1) // by - r0 // by + 1) * ((c0 + ncols - 1) // bx - c0 // bx + 1))
     if len(keys) > 0.7 * n_blocks:
         return band.ReadAsArray(c0, r0, ncols, nrows).astype(np.float32, copy=False).ravel()[flat]
-    buf = np.empty((nrows, ncols), dtype=np.float32)
-    # runs of consecutive blocks in one block row
+    out = np.empty(flat.size, dtype=np.float32)
+    # runs of consecutive blocks in one block row, each read at once; its cells picked from it
     new_run = np.r_[True, (br[1:] != br[:-1]) | (bc[1:] != bc[:-1] + 1)]
     starts = np.flatnonzero(new_run)
     stops = np.r_[starts[1:], len(keys)] - 1
+    cell_brow = (rr + r0) // by  # not decreasing: the cells are in row-major order
     for i, j in zip(starts, stops):
         y0 = max(int(br[i]) * by, r0)
         y1 = min((int(br[i]) + 1) * by, r0 + nrows)
         x0 = max(int(bc[i]) * bx, c0)
         x1 = min((int(bc[j]) + 1) * bx, c0 + ncols)
-        buf[y0 - r0:y1 - r0, x0 - c0:x1 - c0] = band.ReadAsArray(x0, y0, x1 - x0, y1 - y0)
-    return buf.ravel()[flat]
+        s0, s1 = np.searchsorted(cell_brow, [br[i], br[i] + 1])
+        ccs = cc[s0:s1] + c0
+        m = np.flatnonzero((ccs >= x0) & (ccs < x1)) + s0
+        win = band.ReadAsArray(x0, y0, x1 - x0, y1 - y0)
+        out[m] = win[rr[m] + r0 - y0, cc[m] + c0 - x0]
+    return out
 
 
 def read_raster_run(depth: str, speed: str | None = None, u: str | None = None, v: str | None = None,
@@ -220,6 +225,7 @@ class RasterRunReader:
                 del d, valid, wet
         finally:
             del dband  # GDAL 3.6 bands do not keep their dataset alive: free them first
+            self._dds = None  # done with the depth raster: its decoded blocks leave GDAL's cache now
         self._raw_min = raw_min
         index = np.concatenate(idx_parts) if idx_parts else np.zeros(0, np.int64)
         rr = np.concatenate(row_parts) if row_parts else np.zeros(0, np.int64)  # = divmod(index, cols)

@@ -327,3 +327,26 @@ def test_wet_extent_of_grid_and_mesh(qgis_app):
     mfld = HydraulicField(np.array([5.0]), np.array([5.0]), np.array([100.0]), np.ones(1, np.float32),
                           np.ones(1, np.float32), support=MeshSupport(nx, ny, fn, np.array([0])))
     assert wet_extent(mfld).area == pytest.approx(100.0)
+
+
+@pytest.mark.parametrize("wkt, xs, ys, ms", [
+    ("LineStringM (0 0 5, 10 0 15, 20 5 30)", [0, 10, 20], [0, 0, 5], [5, 15, 30]),
+    ("LineStringZM (0 0 1 5, 10 0 2 15)", [0, 10], [0, 0], [5, 15]),
+    ("LineStringZ (0 0 1, 10 0 2)", [0, 10], [0, 0], None),
+])
+def test_line_source_coordinates_and_measures(wkt, xs, ys, ms):
+    """Coordinates and M values read from the layer's WKB equal the geometry's own vertices."""
+    from qgis.core import QgsFeature, QgsGeometry
+
+    from plugin.gis.reachinput import read_line_source
+
+    geom = QgsGeometry.fromWkt(wkt)
+    layer = QgsVectorLayer(f"{wkt.split()[0]}?crs={UTM}", "l", "memory")
+    f = QgsFeature()
+    f.setGeometry(geom)
+    layer.dataProvider().addFeatures([f])
+    parts, measures, _, _ = read_line_source(layer)
+    vertices = list(geom.vertices())
+    assert list(parts[0][0]) == [v.x() for v in vertices] == xs
+    assert list(parts[0][1]) == [v.y() for v in vertices] == ys
+    assert (measures[0] is None) if ms is None else (list(measures[0]) == [v.m() for v in vertices] == ms)

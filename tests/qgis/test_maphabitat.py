@@ -517,11 +517,12 @@ def demo_runs(sample_dir, provider, tmp_path_factory):
 
     tmp = tmp_path_factory.mktemp("demo")
     cl, line = _upstream_first(sample_dir, tmp)
-    mesh_rows = list(csv.DictReader(open(sample_dir / "scenarios_mesh.csv", encoding="utf-8")))
+    with open(sample_dir / "scenarios_mesh.csv", encoding="utf-8") as fh:
+        mesh_rows = list(csv.DictReader(fh))
     mrow = next(r for r in mesh_rows if r["regime"] == "weir")
     q = float(mrow["discharge"])
-    rrow = next(r for r in csv.DictReader(open(sample_dir / "scenarios.csv", encoding="utf-8"))
-                if r["regime"] == "weir" and float(r["discharge"]) == q)
+    with open(sample_dir / "scenarios.csv", encoding="utf-8") as fh:
+        rrow = next(r for r in csv.DictReader(fh) if r["regime"] == "weir" and float(r["discharge"]) == q)
     common = {"CENTRELINE": cl, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": ""}
 
     def run(params):

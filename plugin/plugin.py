@@ -31,6 +31,11 @@ class ChannelHabitatPlugin:
         self.initProcessing()
         if self.iface is None:
             return
+        from .provider import dependency_problem
+
+        problem = dependency_problem()
+        if problem:
+            self.iface.messageBar().pushCritical("Channel Habitat", problem)
         from qgis.PyQt.QtWidgets import QAction
 
         self.toolbar = self.iface.addToolBar("Channel Habitat")

@@ -19,6 +19,21 @@ def provider_icon() -> QIcon:
     return QIcon(str(resource_path("icons", "channel_habitat.svg")))
 
 
+SHAPELY_HINT = ('install it into the Python QGIS uses: python -m pip install "shapely>=2.0,<2.1" '
+                '(Debian/Ubuntu: python3 -m pip install --user --break-system-packages "shapely>=2.0,<2.1")')
+
+
+def dependency_problem() -> str | None:
+    """What is missing for the algorithms to load (None when all is there)."""
+    try:
+        import shapely
+    except ImportError:
+        return f"Channel Habitat needs shapely 2.0, which is not installed: {SHAPELY_HINT}"
+    if int(shapely.__version__.split(".")[0]) < 2:
+        return f"Channel Habitat needs shapely 2.0; shapely {shapely.__version__} is installed: {SHAPELY_HINT}"
+    return None
+
+
 def algorithm_classes() -> list:
     """Every algorithm class: each module in algorithms/ (not starting with '_') defines one or
     more subclasses of ChannelHabitatAlgorithm with an ALG_ID."""
@@ -65,5 +80,11 @@ class ChannelHabitatProvider(QgsProcessingProvider):
         return str(resource_path("icons", "channel_habitat.svg"))
 
     def loadAlgorithms(self):  # noqa: N802
+        problem = dependency_problem()
+        if problem:
+            from qgis.core import Qgis, QgsMessageLog
+
+            QgsMessageLog.logMessage(problem, "Channel Habitat", Qgis.Critical)
+            return
         for cls in algorithm_classes():
             self.addAlgorithm(cls())

@@ -70,3 +70,23 @@ def test_algorithm_ids_are_the_designed_ones(provider):
     assert not IMPORT_ERRORS, f"algorithm modules failed to import: {IMPORT_ERRORS}"
     ids = {a.name() for a in provider.algorithms()}
     assert ids == DESIGNED_IDS, f"missing {DESIGNED_IDS - ids}, not in DESIGN.md {ids - DESIGNED_IDS}"
+
+
+def test_missing_shapely_is_explained(monkeypatch):
+    """Without shapely 2 the provider says what to install instead of failing obscurely."""
+    import builtins
+
+    from plugin import provider as prov
+
+    real_import = builtins.__import__
+
+    def fake_import(name, *args, **kwargs):
+        if name == "shapely":
+            raise ImportError("no shapely")
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.setattr(builtins, "__import__", fake_import)
+    msg = prov.dependency_problem()
+    assert "shapely 2.0" in msg and "pip install" in msg
+    monkeypatch.setattr(builtins, "__import__", real_import)
+    assert prov.dependency_problem() is None

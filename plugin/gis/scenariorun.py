@@ -32,7 +32,9 @@ What it does, in order:
    GDAL had read rasters from threads deadlocked in its children while this was developed) nor
    re-spawned (``sys.executable`` is QGIS itself on some platforms). Memory stays at about
    ``workers`` runs at a time (plus GDAL's shared block cache).
-4. Per row: :func:`gis.runs.read_run` (speed raster only when the row also lists u and v and
+4. Per row: :func:`gis.runblocks.read_raster_blocks` (tiled GeoTIFFs: the dry blocks are found by
+   their compressed bytes and never decoded; the same field as read_run, bit for bit), else
+   :func:`gis.runs.read_run` (speed raster only when the row also lists u and v and
    vectors are not needed); ``core.reach.locate_field`` for the chainage, which caches per grid or
    mesh geometry. Calls are made one at a time (the cache is shared), so the second run of a grid
    waits for the first and is then served from the cache instead of both computing it; rows are
@@ -67,6 +69,7 @@ from ..core.field import GridSupport, HydraulicField
 from ..core.habitat import check_metric_crs, crs_name, reach_in_crs
 from ..core.reach import locate_field
 from ..core.scenario import ScenarioRow, check_same_crs
+from .runblocks import read_raster_blocks
 from .runs import read_run, same_crs
 
 gdal.UseExceptions()
@@ -305,7 +308,12 @@ def run_scenarios(rows: list[ScenarioRow], work, *, wet_depth_m: float, reach=No
         read_progress = Progress(lambda f, _m: report(0.5 * f, None))
         try:
             t0 = time.perf_counter()
-            fld = read_run(_source_for(row, need_vectors), wet_depth_m, read_progress)
+            src = _source_for(row, need_vectors)
+            # dry blocks skipped unread; None when that shortcut does not apply (read_run then reads and
+            # says what needs saying)
+            fld = read_raster_blocks(src, wet_depth_m, read_progress)
+            if fld is None:
+                fld = read_run(src, wet_depth_m, read_progress)
             rp.check()
             if need_vectors and (fld.u is None or fld.v is None):
                 raise ChannelHabitatError("this algorithm needs velocity vectors: give u and v rasters (or a mesh "

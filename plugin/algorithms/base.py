@@ -94,10 +94,7 @@ class ChannelHabitatAlgorithm(QgsProcessingAlgorithm):
         raise NotImplementedError
 
     def compute(self, parameters, context, feedback):  # pragma: no cover - abstract
-        # Transitional: algorithms written against the first version of this class override
-        # ``run`` (and hand QGIS's own calls back to QgsProcessingAlgorithm.run).
-        if type(self).run is not QgsProcessingAlgorithm.run:
-            return self.run(parameters, context, feedback)
+        """The algorithm's work: read the parameters, call the core, write the outputs; return them."""
         raise NotImplementedError(f"{type(self).__name__} must implement compute()")
 
     def progress(self, feedback, start: float = 0.0, end: float = 1.0) -> Progress:

@@ -7,7 +7,6 @@ import math
 from qgis.core import (
     QgsCoordinateReferenceSystem,
     QgsProcessing,
-    QgsProcessingAlgorithm,
     QgsProcessingParameterDefinition,
     QgsProcessingParameterEnum,
     QgsProcessingParameterFeatureSink,
@@ -176,13 +175,6 @@ docs/algorithms/driftresidence.md.</p>
             optional=True, createByDefault=True))
         self.addParameter(QgsProcessingParameterFileDestination(
             "REPORT", "Report", "HTML files (*.html)", optional=True, createByDefault=True))
-
-    def run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs):
-        if qgis_args or qgis_kwargs:
-            # Processing calls QgsProcessingAlgorithm.run(parameters, context, feedback, configuration,
-            # catchExceptions); base.py's hook has the same name: hand the call back to QGIS.
-            return QgsProcessingAlgorithm.run(self, parameters, context, feedback, *qgis_args, **qgis_kwargs)
-        return self.compute(parameters, context, feedback)
 
     # ------------------------------------------------------------------------------------------
     def _scenario_rows(self, parameters, context, unit):

@@ -150,7 +150,8 @@ def test_declines_what_read_run_must_say_or_refuse(tmp_path):
     pd = _tif(tmp_path / "dry.tif", np.full(d.shape, ND, np.float32))
     _declines(tmp_path, RunSource(depth=pd, speed=ps))
     # another grid (read_run resamples and says so), another block size, a south-up raster
-    _declines(tmp_path, RunSource(depth=p["depth"], speed=_tif(tmp_path / "sg.tif", s, gt=(500001.0, 2, 0, 6e6, 0, -2))))
+    shifted = _tif(tmp_path / "sg.tif", s, gt=(500001.0, 2, 0, 6e6, 0, -2))
+    _declines(tmp_path, RunSource(depth=p["depth"], speed=shifted))
     _declines(tmp_path, RunSource(depth=p["depth"], speed=_tif(tmp_path / "sb.tif", s, block=128)))
     _declines(tmp_path, RunSource(depth=_tif(tmp_path / "su.tif", d[::-1], gt=(5e5, 2, 0, 6e6 - 600, 0, 2)),
                                   speed=ps))

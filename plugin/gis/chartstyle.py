@@ -49,3 +49,55 @@ def _speed_intervals(scheme):
         return None
     _, lows, highs = edges
     return [(lo, hi, c.colour, c.name) for lo, hi, c in zip(lows, highs, scheme.classes)]
+
+
+# ----------------------------------------------------------------------------------------------
+# Regimes and discharge axes (flow-habitat and weighted-usable-area charts, matplotlib and SVG)
+# ----------------------------------------------------------------------------------------------
+
+# Okabe & Ito (2008): blue, vermillion, bluish green, reddish purple, orange, sky blue, black, yellow.
+REGIME_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000", "#B8A200")
+# matplotlib dash patterns (offset, (on, off, ...)) in multiples of the line width; "-" is solid
+REGIME_DASHES = ("-", (0, (5, 2)), (0, (1.2, 1.6)), (0, (6, 2, 1.2, 2)), (0, (3, 1.5)), (0, (8, 2, 1.2, 2, 1.2, 2)))
+REGIME_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "h")
+Q_LABEL = "discharge (ML/d, log scale)"
+
+
+def regime_style(i: int) -> dict:
+    """Colour, line style and marker of the i-th regime (told apart by all three)."""
+    return {"color": REGIME_COLOURS[i % len(REGIME_COLOURS)], "linestyle": REGIME_DASHES[i % len(REGIME_DASHES)],
+            "marker": REGIME_MARKERS[i % len(REGIME_MARKERS)]}
+
+
+def nice_q_ticks(qmin: float, qmax: float, sparse: bool = False) -> list:
+    """Round ticks of a log discharge axis inside [qmin, qmax]: 1, 2, 3, 5 (sparse: 1, 3) x 10^k; at
+    least three (the ends are added when fewer fall inside)."""
+    ticks = []
+    mantissas = (1, 3) if sparse else (1, 2, 3, 5)
+    lo = math.floor(math.log10(qmin)) - 1
+    hi = math.ceil(math.log10(qmax)) + 1
+    for k in range(lo, hi + 1):
+        for m in mantissas:
+            v = m * 10.0 ** k
+            if qmin * 0.999 <= v <= qmax * 1.001:
+                ticks.append(v)
+    if len(ticks) < 3:
+        ticks = sorted(set(ticks) | {qmin, qmax})
+    return ticks
+
+
+def fmt_q(v, _pos=None) -> str:
+    """A discharge tick label: thousands separated from 100 up, else three significant digits."""
+    if v >= 100:
+        return f"{v:,.0f}"
+    return f"{v:.3g}"
+
+
+def dense_q(q_runs, n: int = 80):
+    """A dense log-spaced discharge grid from the first to the last run (where the interpolant is drawn)."""
+    import numpy as np
+
+    q = np.asarray(q_runs, dtype=float)
+    if q.size < 2:
+        return q.copy()
+    return np.exp(np.linspace(np.log(q[0]), np.log(q[-1]), n))

@@ -1,4 +1,4 @@
-"""Charts of flow-habitat curves and of weighted usable area against discharge (matplotlib, Agg).
+"""Charts of weighted usable area against discharge and of suitability curves (matplotlib, Agg).
 
 House style from gis/charts.py. Discharge axes are logarithmic (the ladders are roughly geometric),
 labelled in ML/d with m3/s on the top axis where there is room. Regimes are told apart by colour
@@ -8,13 +8,11 @@ distinct for the common forms of colour-vision deficiency, and the styles for an
     regime_style(i)                                  colour, line style, marker of the i-th regime
     log_q_axis(ax, qmin, qmax, top=True)             log discharge axis with round ML/d ticks
     dense_q(q_runs)                                  a dense log-spaced discharge grid between runs
-    class_share_panels(curves, unit, regimes, ...)   one panel per class, regimes overlaid
-    target_panels(curves, results, targets, ...)     one panel per target: curve, threshold, answer
-    composition_grid(curves, units, regimes, ...)    rows = units, columns = regimes, stacked shares
-    wet_area_panels(curves, units, regimes)          wet area (ha) against discharge per unit
-    segment_share_maps(curves, classes, regimes)     share of a class set per segment x run
     value_panels(panels, regimes, ylabel)            any value against discharge (WUA)
     suitability_curves(curve_set)                    piecewise-linear suitability curves
+
+The flowhabitat report's charts are written directly as SVG (gis/flowsvg.py); the pure helpers (regime
+styles, discharge ticks) live in gis/chartstyle.py and serve both.
 """
 
 from __future__ import annotations
@@ -29,38 +27,19 @@ from matplotlib.ticker import FixedLocator, FuncFormatter, NullLocator
 from ..core.curves import pchip_log_q
 from ..core.units import M3S_PER_MLD
 from .charts import GRID, INK, MUTED, RC, style_axes
+from .chartstyle import (  # noqa: F401 - re-exported for the reports that use them
+    Q_LABEL,
+    REGIME_COLOURS,
+    REGIME_DASHES,
+    REGIME_MARKERS,
+    dense_q,
+    fmt_q,
+    nice_q_ticks,
+    regime_style,
+)
 
-# Okabe & Ito (2008): blue, vermillion, bluish green, reddish purple, orange, sky blue, black, yellow.
-REGIME_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000", "#B8A200")
-REGIME_DASHES = ("-", (0, (5, 2)), (0, (1.2, 1.6)), (0, (6, 2, 1.2, 2)), (0, (3, 1.5)), (0, (8, 2, 1.2, 2, 1.2, 2)))
-REGIME_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "h")
-Q_LABEL = "discharge (ML/d, log scale)"
-
-
-def regime_style(i: int) -> dict:
-    return {"color": REGIME_COLOURS[i % len(REGIME_COLOURS)], "linestyle": REGIME_DASHES[i % len(REGIME_DASHES)],
-            "marker": REGIME_MARKERS[i % len(REGIME_MARKERS)]}
-
-
-def _nice_ticks(qmin: float, qmax: float, sparse: bool = False) -> list:
-    ticks = []
-    mantissas = (1, 3) if sparse else (1, 2, 3, 5)
-    lo = math.floor(math.log10(qmin)) - 1
-    hi = math.ceil(math.log10(qmax)) + 1
-    for k in range(lo, hi + 1):
-        for m in mantissas:
-            v = m * 10.0 ** k
-            if qmin * 0.999 <= v <= qmax * 1.001:
-                ticks.append(v)
-    if len(ticks) < 3:
-        ticks = sorted(set(ticks) | {qmin, qmax})
-    return ticks
-
-
-def _fmt_q(v, _pos=None) -> str:
-    if v >= 100:
-        return f"{v:,.0f}"
-    return f"{v:.3g}"
+_nice_ticks = nice_q_ticks
+_fmt_q = fmt_q
 
 
 def log_q_axis(ax, qmin: float, qmax: float, top: bool = False, label: bool = True, sparse: bool = False):
@@ -90,22 +69,10 @@ def log_q_axis(ax, qmin: float, qmax: float, top: bool = False, label: bool = Tr
             sec.spines[side].set_color(MUTED)
 
 
-def dense_q(q_runs, n: int = 80) -> np.ndarray:
-    q = np.asarray(q_runs, dtype=float)
-    if q.size < 2:
-        return q.copy()
-    return np.exp(np.linspace(np.log(q[0]), np.log(q[-1]), n))
-
-
 def _grid(n_panels: int, max_cols: int = 4):
     ncols = min(max_cols, max(n_panels, 1))
     nrows = int(math.ceil(n_panels / ncols))
     return nrows, ncols
-
-
-def _q_range(curves, regimes):
-    qs = np.concatenate([curves.ladder(r) for r in regimes])
-    return float(qs.min()), float(qs.max())
 
 
 def _panels(nrows: int, ncols: int, width_in: float = 9.5, panel_h_in: float = 1.9, top_in: float = 0.6,
@@ -136,181 +103,6 @@ def _legend_top(fig, handles, labels, ncol=None):
 def _hide_extra(axes, used: int):
     for ax in axes.ravel()[used:]:
         ax.set_visible(False)
-
-
-# ----------------------------------------------------------------------------------------------
-# Flow-habitat curves
-# ----------------------------------------------------------------------------------------------
-
-def class_share_panels(curves, unit, regimes, title: str = "", max_cols: int = 4, width_in: float = 9.5):
-    """One panel per class: % of the unit's wet area against discharge, one line per regime (the PCHIP
-    interpolant on ln q that targets use), markers at the runs."""
-    u = curves.unit_index(unit)
-    names = curves.class_names
-    nrows, ncols = _grid(len(names), max_cols)
-    fig, axes = _panels(nrows, ncols, width_in, 1.9, top_in=0.6, sharey=True)
-    qmin, qmax = _q_range(curves, regimes)
-    handles, labels = [], []
-    for k, name in enumerate(names):
-        ax = axes.ravel()[k]
-        for i, regime in enumerate(regimes):
-            st = regime_style(i)
-            rc = curves.regime(regime)
-            q = rc.q_mld
-            pct = rc.percent()[:, u, k]
-            qd = dense_q(q)
-            yd = curves.percent_grid(regime, qd)[:, u, k] if q.size > 1 else pct
-            line, = ax.plot(qd, yd, color=st["color"], linestyle=st["linestyle"], linewidth=1.4)
-            ax.plot(q, pct, linestyle="none", marker=st["marker"], markersize=3.6, color=st["color"],
-                    markeredgecolor="white", markeredgewidth=0.4)
-            if k == 0:
-                handles.append(line)
-                labels.append(regime)
-        ax.set_ylim(0, 100)
-        log_q_axis(ax, qmin, qmax, label=k >= len(names) - ncols, sparse=ncols >= 3)
-        style_axes(ax, None, "% of wet area" if k % ncols == 0 else None, name)
-    _hide_extra(axes, len(names))
-    _legend_top(fig, handles, labels)
-    if title:
-        fig.suptitle(title, x=0.01, ha="left", fontsize=10)
-    return fig
-
-
-def _answer_label(regime: str, res) -> str:
-    from ..core.curves import INTERPOLATED, MET_AT_LOWEST, MET_AT_RUN
-
-    if res is None:
-        return regime
-    if res.status == INTERPOLATED or res.status == MET_AT_RUN:
-        return f"{regime}: {res.q_mld:,.0f} ML/d"
-    if res.status == MET_AT_LOWEST:
-        return f"{regime}: met at the lowest run ({res.q_mld:,.0f})"
-    return f"{regime}: not reached up to {res.q_highest_mld:,.0f}"
-
-
-def target_panels(curves, results, targets, regimes, max_cols: int = 2, width_in: float = 9.5):
-    """One panel per target: the class set's % of the unit against discharge per regime, the threshold
-    (dashed) and the smallest discharge that meets it (dotted drop line and a filled marker)."""
-    nrows, ncols = _grid(len(targets), max_cols)
-    fig, axes = _panels(nrows, ncols, width_in, 2.3, top_in=0.75, hgap_in=1.3, wgap_in=0.75)
-    qmin, qmax = _q_range(curves, regimes)
-    by = {(r.regime, r.target): r for r in results}
-    for k, tg in enumerate(targets):
-        ax = axes.ravel()[k]
-        handles, labels = [], []
-        for i, regime in enumerate(regimes):
-            st = regime_style(i)
-            q, pct = curves.percent_ladder(regime, tg.unit, tg.classes)
-            qd = dense_q(q)
-            yd = curves.percent_at(regime, qd, tg.unit, tg.classes) if q.size > 1 else pct
-            line, = ax.plot(qd, yd, color=st["color"], linestyle=st["linestyle"], linewidth=1.4)
-            ax.plot(q, pct, linestyle="none", marker=st["marker"], markersize=3.6, color=st["color"],
-                    markeredgecolor="white", markeredgewidth=0.4)
-            res = by.get((regime, tg))
-            if res is not None and math.isfinite(res.q_mld):
-                yq = float(curves.percent_at(regime, np.array([res.q_mld]), tg.unit, tg.classes)[0])
-                ax.plot([res.q_mld, res.q_mld], [0, yq], color=st["color"], linestyle=(0, (1, 1.5)), linewidth=1.0)
-                ax.plot([res.q_mld], [yq], marker=st["marker"], markersize=7, color=st["color"],
-                        markeredgecolor=INK, markeredgewidth=0.8, zorder=5)
-            handles.append(line)
-            labels.append(_answer_label(regime, res))
-        ax.axhline(tg.threshold_pct, color=INK, linestyle=(0, (5, 3)), linewidth=0.9)
-        ax.annotate(f"{tg.op} {tg.threshold_pct:g}%", xy=(1.0, tg.threshold_pct), xycoords=("axes fraction", "data"),
-                    xytext=(2, 2), textcoords="offset points", fontsize=7.5, color=INK, ha="right", va="bottom")
-        ax.set_ylim(0, 100)
-        log_q_axis(ax, qmin, qmax, top=True)
-        style_axes(ax, None, f"{'+'.join(tg.classes)} (% of {tg.unit})", None)
-        ax.set_title(tg.text, loc="left", fontsize=9.5, color=INK, pad=22)
-        ax.legend(handles, labels, loc="best", frameon=True, framealpha=0.85, edgecolor=GRID, fontsize=7.5)
-    _hide_extra(axes, len(targets))
-    return fig
-
-
-def composition_grid(curves, units, regimes, scheme, width_in: float = 9.5):
-    """Rows = units (reach, zones), columns = regimes: 100 % stacked class shares against discharge, in
-    the class colours; straight between the runs (so the layers add up to 100 % everywhere)."""
-    nrows, ncols = len(units), len(regimes)
-    fig, axes = _panels(nrows, ncols, width_in, 1.35, top_in=0.65, hgap_in=0.2, left_in=1.0, wgap_in=0.2,
-                       sharey=True)
-    qmin, qmax = _q_range(curves, regimes)
-    colours = scheme.colours if len(scheme.colours) == len(curves.class_names) else None
-    for r, unit in enumerate(units):
-        u = curves.unit_index(unit)
-        for c, regime in enumerate(regimes):
-            ax = axes[r, c]
-            rc = curves.regime(regime)
-            pct = np.nan_to_num(rc.percent()[:, u, :])
-            ax.stackplot(rc.q_mld, pct.T, colors=colours, linewidth=0.0, labels=curves.class_names)
-            ax.set_ylim(0, 100)
-            log_q_axis(ax, qmin, qmax, label=r == nrows - 1, sparse=ncols >= 3)
-            style_axes(ax, None, f"{curves.units[u].key}\n% of wet area" if c == 0 else None,
-                       regime if r == 0 else None)
-            ax.grid(False, axis="x")
-            if r != nrows - 1:
-                ax.tick_params(labelbottom=False)
-    handles, labels = axes[0, 0].get_legend_handles_labels()
-    _legend_top(fig, handles, labels, ncol=min(len(labels), 6))
-    return fig
-
-
-def wet_area_panels(curves, units, regimes, max_cols: int = 4, width_in: float = 9.5):
-    """Wet area (ha) against discharge: one panel per unit, one line per regime."""
-    nrows, ncols = _grid(len(units), max_cols)
-    fig, axes = _panels(nrows, ncols, width_in, 1.8, top_in=0.6, wgap_in=0.55)
-    qmin, qmax = _q_range(curves, regimes)
-    handles, labels = [], []
-    for k, unit in enumerate(units):
-        ax = axes.ravel()[k]
-        u = curves.unit_index(unit)
-        for i, regime in enumerate(regimes):
-            st = regime_style(i)
-            rc = curves.regime(regime)
-            line, = ax.plot(rc.q_mld, rc.wet[:, u] / 1e4, color=st["color"], linestyle=st["linestyle"],
-                            marker=st["marker"], markersize=3.4, linewidth=1.3)
-            if k == 0:
-                handles.append(line)
-                labels.append(regime)
-        ax.set_ylim(bottom=0)
-        log_q_axis(ax, qmin, qmax, label=k >= len(units) - ncols, sparse=ncols >= 3)
-        style_axes(ax, None, "wet area (ha)" if k % ncols == 0 else None, curves.units[u].key)
-    _hide_extra(axes, len(units))
-    _legend_top(fig, handles, labels)
-    return fig
-
-
-def segment_share_maps(curves, classes, regimes, width_in: float = 9.5):
-    """Per regime: the share of a class set (%) in every segment (rows, upstream at the top) at every
-    run (columns), as a colour map (cividis: readable in colour-vision deficiency and in grey)."""
-    seg = [i for i, u in enumerate(curves.units) if u.scope == "segment"]
-    if not seg:
-        return None
-    idx = curves.class_indices(classes)
-    ncols = len(regimes)
-    fig, axes = _panels(1, ncols, width_in, max(1.5, 0.13 * len(seg)), top_in=0.3, bottom_in=0.95, right_in=1.05,
-                       wgap_in=0.2, sharey=True)
-    edges_km = np.array([curves.units[seg[0]].chainage_from_m] + [curves.units[i].chainage_to_m for i in seg]) / 1e3
-    mesh = None
-    for c, regime in enumerate(regimes):
-        ax = axes[0, c]
-        rc = curves.regime(regime)
-        area = rc.areas[:, seg, :][:, :, idx].sum(axis=-1)
-        wet = rc.wet[:, seg]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            pct = np.where(wet > 0, 100.0 * area / wet, np.nan)
-        x = np.arange(rc.q_mld.size + 1) - 0.5
-        mesh = ax.pcolormesh(x, edges_km, pct.T, cmap="cividis", vmin=0, vmax=100, shading="flat")
-        ax.set_facecolor("#e9ecef")
-        ax.set_xticks(np.arange(rc.q_mld.size))
-        ax.set_xticklabels([_fmt_q(q) for q in rc.q_mld], rotation=90, fontsize=7)
-        ax.set_ylim(edges_km[-1], edges_km[0])
-        style_axes(ax, "run (ML/d)", "chainage (km)  ↓ downstream" if c == 0 else None, regime)
-        ax.grid(False)
-    box = axes[0, -1].get_position()
-    cax = fig.add_axes([box.x1 + 0.15 / width_in, box.y0, 0.14 / width_in, box.height])
-    cb = fig.colorbar(mesh, cax=cax)
-    cb.set_label(f"{'+'.join(curves.class_names[i] for i in idx)} (% of segment wet area)", fontsize=8)
-    cb.ax.tick_params(labelsize=7)
-    return fig
 
 
 # ----------------------------------------------------------------------------------------------

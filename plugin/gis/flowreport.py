@@ -7,7 +7,7 @@ import numpy as np
 
 from ..core import curves as cv
 from ..core.stats import field_key
-from . import flowcharts
+from . import flowsvg
 from .habitatreport import class_legend
 from .report import Report
 
@@ -130,7 +130,7 @@ def build_report(curves, results, table, scheme, wet_depth_m: float, table_desc:
         tcols = cv.targets_table(results)
         rep.table(tcols, caption="Targets", csv_name="targets",
                   hide=("unit", "classes", "op", "threshold_pct", "method", "q_lowest_mld", "q_highest_mld"))
-        rep.figure(flowcharts.target_panels(curves, results, targets, regimes),
+        rep.figure(flowsvg.target_panels(curves, results, targets, regimes),
                    caption="Share of each target's classes against discharge, one line per regime (the interpolant "
                            "used for the answer; markers at the runs), the threshold dashed and the answer marked "
                            "with a drop line.")
@@ -140,25 +140,25 @@ def build_report(curves, results, table, scheme, wet_depth_m: float, table_desc:
                 "interpolant the targets use.")
     for unit in [u for u in curves.units if u.scope in ("reach", "zone")]:
         rep.section(unit.key if unit.scope == "zone" else "whole reach", level=3)
-        rep.figure(flowcharts.class_share_panels(curves, unit, regimes),
+        rep.figure(flowsvg.class_share_panels(curves, unit, regimes),
                    caption=f"{unit.key}: % of the wet area in each class against discharge "
                            f"(chainage {unit.chainage_from_m:,.0f}–{unit.chainage_to_m:,.0f} m).")
     zones = [u for u in curves.units if u.scope in ("reach", "zone")]
     rep.section("Class make-up per zone and regime",
                 "Rows are the whole reach and the zones, columns the regimes: the class shares stacked to 100 % of "
                 "the wet area against discharge (straight between the runs).")
-    rep.figure(flowcharts.composition_grid(curves, zones, regimes, scheme),
+    rep.figure(flowsvg.composition_grid(curves, zones, regimes, scheme),
                caption="Class make-up against discharge; rows: units, columns: regimes.")
-    rep.figure(flowcharts.wet_area_panels(curves, zones, regimes),
+    rep.figure(flowsvg.wet_area_panels(curves, zones, regimes),
                caption="Wet area (hectares) of the whole reach and of each zone against discharge.")
     set_classes = list(targets[0].classes) if targets else [curves.class_names[-1]]
-    fig = flowcharts.segment_share_maps(curves, set_classes, regimes)
+    fig = flowsvg.segment_share_maps(curves, set_classes, regimes, origin=ax.origin)
     if fig is not None:
         rep.section("Along the reach",
-                    f"Share of {'+'.join(set_classes)} in the wet area of every segment (rows, upstream at the top) "
-                    "at every run (columns), per regime. Grey: the segment is dry in that run. "
+                    f"Share of {'+'.join(set_classes)} in the wet area of every segment (rows, in chainage order from "
+                    "the top) at every run (columns), per regime. Grey: the segment is dry in that run. "
                     + ("The classes are those of the first target." if targets else "The last class of the scheme."))
-        rep.figure(fig, caption=f"{'+'.join(set_classes)} per segment and run.", fmt="png")
+        rep.figure(fig, caption=f"{'+'.join(set_classes)} per segment and run.")
     rep.section("Tables", "The whole reach and the zones at every run; the CURVES output holds every segment too.")
     rep.table(unit_rows(curves), caption="Class shares of the reach and zones at every run", csv_name="zone_curves")
     rep.table(runs, caption="Runs", csv_name="runs")

@@ -107,12 +107,14 @@ class Canvas:
                            f'stroke-width="{width:g}"{extra}/>')
 
     def path(self, d: str, fill: str = "none", stroke: str | None = None, width: float = 1.0,
-             opacity: float | None = None, clip: str | None = None, join: str = "miter"):
+             opacity: float | None = None, clip: str | None = None, join: str = "miter", dash: str | None = None):
         if not d:
             return
         extra = f' fill-opacity="{opacity:g}"' if (opacity is not None and fill != "none") else ""
         if stroke:
             extra += f' stroke="{stroke}" stroke-width="{width:g}" stroke-linejoin="{join}"'
+            if dash:
+                extra += f' stroke-dasharray="{dash}"'
         if clip:
             extra += f' clip-path="url(#{clip})"'
         self._parts.append(f'<path d="{d}" fill="{fill}"{extra}/>')

@@ -114,6 +114,10 @@ class QPlot(_Plot):
     def X(self, v):  # noqa: N802 - discharge (ML/d) -> points
         return super().X(np.log10(np.asarray(v, dtype=float)))
 
+    def clip(self) -> str:
+        """The plot box, 2 pt taller at both ends so lines at 0 or 100 % show their full width."""
+        return self.c.clip_rect(self.x0, self.y0 - 2.0, self.x1 - self.x0, self.y1 - self.y0 + 4.0)
+
     def _tick_labels(self, ticks, y, size=8.0):
         """Tick labels centred on their ticks, skipping any that would touch the previous one."""
         last = -1e9
@@ -278,11 +282,15 @@ def target_panels(curves, results, targets, regimes, max_cols: int = 2, title: s
         pl.grid_y(PCT_TICKS)
         pl.axis_q()
         pl.axis_m3s()
-        pl.axis_y_pct(PCT_TICKS, f"{'+'.join(tg.classes)} (% of {tg.unit})")
+        ylabel = f"{'+'.join(tg.classes)} (% of {tg.unit})"
+        if text_width(ylabel, 9.0) > panel_h:  # two lines: the class set, then the unit
+            ylabel = ("+".join(tg.classes), f"(% of {tg.unit})")
+        pl.axis_y_pct(PCT_TICKS, ylabel)
         c.text(box[0] - left + 8.0, box[1] - 30.0, tg.text, 9.5, "start", INK, weight="600")
         y_thr = float(pl.Y(tg.threshold_pct))
         c.line(pl.x0, y_thr, pl.x1, y_thr, INK, 0.9, dash="4.5,2.7")
-        c.text(pl.x1 - 2.0, y_thr - 3.0, f"{_OP_TEXT.get(tg.op, tg.op)} {tg.threshold_pct:g}%", 7.5, "end", INK)
+        y_lab = y_thr - 3.0 if tg.threshold_pct <= 85.0 else y_thr + 9.5  # below the line near the top
+        c.text(pl.x1 - 2.0, y_lab, f"{_OP_TEXT.get(tg.op, tg.op)} {tg.threshold_pct:g}%", 7.5, "end", INK)
         labels = []
         for i, regime in enumerate(regimes):
             q, pct = curves.percent_ladder(regime, tg.unit, tg.classes)

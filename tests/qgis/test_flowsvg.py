@@ -60,8 +60,12 @@ def _root(svg):
 
 
 def _boxes(root):
-    return [tuple(float(r.get(k)) for k in ("x", "y", "width", "height")) for r in root.iter(f"{S}clipPath")
-            for r in r.iter(f"{S}rect")]
+    """Plot boxes from the clip rectangles (2 pt taller than the box at both ends)."""
+    out = []
+    for cp in root.iter(f"{S}clipPath"):
+        x, y, w, h = (float(cp[0].get(k)) for k in ("x", "y", "width", "height"))
+        out.append((x, y + 2.0, w, h - 4.0))
+    return out
 
 
 def _q_of(x, box):

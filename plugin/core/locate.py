@@ -110,6 +110,12 @@ class _Tables:
     amb_code: np.ndarray  # (n_samples, 2) reason
     amb_pending: object = None  # Future of (amb_step, amb_t, amb_code) while built in a thread
 
+    def __getstate__(self):
+        """Pickled (e.g. with a reach sent to worker processes) with the ambiguity tables built: a
+        pending Future holds a lock and cannot be pickled."""
+        self.ambiguity_ready()
+        return self.__dict__.copy()
+
     def ambiguity_ready(self) -> _Tables:
         """The ambiguity tables, waiting for them if they are being built in a thread."""
         if self.amb_pending is not None:

@@ -144,6 +144,15 @@ def drift_rows(rows, reach, scheme, options, wet_depth: float, seeds=None, worke
         workers = min(2, os.cpu_count() or 1, n) if can_use_processes() else 1
     workers = max(1, min(workers, n))
     results = [None] * n
+    if workers > 1:
+        import pickle
+
+        try:  # what every worker gets; a pickling failure inside the pool would leave it hanging
+            pickle.dumps((rows, reach, scheme, options, wet_depth, seeds))
+        except Exception as err:  # noqa: BLE001 - any reason: run the rows here instead
+            if log:
+                log(f"Runs drifted one after another in this process (cannot hand them to worker processes: {err})")
+            workers = 1
     if workers == 1:
         for i, row in enumerate(rows):
             if log:

@@ -161,3 +161,30 @@ def test_empty_and_bad_input():
         idx.nearest(np.array([np.nan]), np.array([0.0]))
     with pytest.raises(ValueError):
         PolylineIndex([0.0, 0.0], [1.0, 1.0])
+
+
+def test_index_pickles_after_use_and_locates_the_same():
+    """A used index (ambiguity tables possibly still being built in a thread) is sent to worker
+    processes with the reach: it must pickle, and the copy must give the same answers."""
+    import pickle
+
+    x, y = meander(4000.0, 5.0, 1200.0, 110.0)
+    rng = np.random.default_rng(5)
+    px = np.concatenate([rng.uniform(x.min() - 100, x.max() + 100, 20000), rng.normal(0, 5000, 500)])
+    py = np.concatenate([rng.uniform(y.min() - 300, y.max() + 300, 20000), rng.normal(0, 5000, 500)])
+    idx = PolylineIndex(x, y)
+    first = idx.nearest(px, py)
+    from concurrent.futures import Future
+
+    for t in (idx._tables, idx._wide):  # as left by a build in a thread whose result nobody collected yet
+        if t is not None:
+            t.ambiguity_ready()
+            f = Future()
+            f.set_result((t.amb_step, t.amb_t, t.amb_code))
+            t.amb_pending = f
+    copy = pickle.loads(pickle.dumps(idx))
+    again = copy.nearest(px, py)
+    np.testing.assert_array_equal(first.segment, again.segment)
+    np.testing.assert_array_equal(first.along, again.along)
+    np.testing.assert_array_equal(first.offset, again.offset)
+    np.testing.assert_array_equal(first.ambiguity, again.ambiguity)

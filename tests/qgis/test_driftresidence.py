@@ -381,8 +381,11 @@ from plugin.gis.driftio import drift_rows
 print("script body ran", flush=True)
 axis = ReachAxis(np.array([{X0}, {X0 + LENGTH}]), np.array([{Y0 + WIDTH / 2}] * 2))
 reach = Reach(axis, np.array([0.0, {LENGTH}]), [0.0, {LENGTH}], ["reach"])
+here = drift_rows(read_scenarios({str(table)!r}), reach, velocity_preset(), drift.DriftOptions(n_particles=3),
+                  0.05, workers=1)  # the reach's locate tables are built and cached in this process first
 out = drift_rows(read_scenarios({str(table)!r}), reach, velocity_preset(), drift.DriftOptions(n_particles=3),
                  0.05, workers=2)
+assert [float(r.result.travel_s[0]) for _, _, r in here] == [float(r.result.travel_s[0]) for _, _, r in out]
 print("travel", [round(float(r.result.travel_s[0]), 6) for _, _, r in out], flush=True)
 """)
     proc = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=300)

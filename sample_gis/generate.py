@@ -114,8 +114,11 @@ def _say(verbose, msg):
 
 def generate(out_dir, cell: float = 5.0, length_km: float = 35.0, seed: int = 1, mesh_regimes=("weir",),
              mesh_face_size: float = 10.0, regimes=tb.REGIMES, discharges=tb.LADDER_MLD, margin_m: float = 40.0,
-             verbose: bool = True) -> dict:
-    """Build the demo reach into ``out_dir`` (replaced as a whole at the end). Returns a summary."""
+             verbose: bool = True, design: dict | None = None) -> dict:
+    """Build the demo reach into ``out_dir`` (replaced as a whole at the end). Returns a summary.
+
+    ``design``: further ``ReachDesign`` fields to override (e.g. ``width_upstream_m`` for a wider
+    benchmark channel); the demo uses the defaults."""
     t_start = time.perf_counter()
     timings = {}
     out = Path(out_dir).resolve()
@@ -133,7 +136,12 @@ def generate(out_dir, cell: float = 5.0, length_km: float = 35.0, seed: int = 1,
     if cell <= 0 or mesh_face_size <= 0:
         raise ValueError("cell size and mesh face size must be positive")
 
-    design = ReachDesign(length_m=float(length_km) * 1000.0, seed=int(seed), margin_m=float(margin_m))
+    overrides = dict(design or {})
+    fields = set(ReachDesign.__dataclass_fields__)
+    unknown_fields = sorted(set(overrides) - fields)
+    if unknown_fields:
+        raise ValueError(f"unknown reach design field(s) {unknown_fields}")
+    design = ReachDesign(length_m=float(length_km) * 1000.0, seed=int(seed), margin_m=float(margin_m), **overrides)
     t = time.perf_counter()
     geom = ReachGeometry(design)
     poly = channel_polygon(geom)

@@ -65,6 +65,7 @@ class ReachDesign:
     width_upstream_m: float = 120.0
     width_downstream_m: float = 175.0
     width_variation_m: float = 12.0
+    width_limits_m: tuple = (80.0, 200.0)  # the demo brief: a channel 80-200 m wide
     crossing_depth_m: float = 6.5  # bank top above the thalweg at a straight crossing
     bend_extra_depth_m: float = 1.0  # extra thalweg depth at the apex of a tight bend
     thalweg_shift: float = 0.45  # thalweg offset towards the outer bank at a tight bend (fraction of half width)
@@ -273,7 +274,7 @@ class ReachGeometry:
         base = d.width_upstream_m + (d.width_downstream_m - d.width_upstream_m) * np.asarray(c) / L
         taper = _smoothstep(np.minimum(np.asarray(c) / 800.0, (L - np.asarray(c)) / 1200.0))
         w = base + taper * _smooth_noise(rng, np.asarray(c, dtype=float), d.width_variation_m, (2300.0, 4100.0, 6700.0))
-        return np.clip(w, 80.0, 200.0)
+        return np.clip(w, *d.width_limits_m)
 
     def _fields(self):
         d = self.design

@@ -30,15 +30,11 @@ from osgeo import gdal
 from ..core.errors import ChannelHabitatError, as_progress
 from ..core.field import DEFAULT_WET_DEPTH_M, GridSupport, HydraulicField, check_values
 from ..core.sources import RunSource
+from .blockscan import DTYPES as _DTYPES
+from .blockscan import any_negative, dry_block_groups, dry_test
 from .runs import same_crs
 
 gdal.UseExceptions()
-
-NEGATIVE_DEPTH_M = -1e-3  # check_values refuses valid depths below this
-_DTYPES = {gdal.GDT_Float32: np.float32, gdal.GDT_Float64: np.float64, gdal.GDT_Int16: np.int16,
-           gdal.GDT_UInt16: np.uint16, gdal.GDT_Int32: np.int32, gdal.GDT_UInt32: np.uint32,
-           gdal.GDT_Byte: np.uint8}
-
 
 class _Raster:
     """One single-band GeoTIFF, opened for block reads. ``close()`` frees the band before the dataset."""
@@ -68,42 +64,6 @@ def _same_grid(a: _Raster, ref: _Raster) -> bool:
     rgt, rshape, rwkt = ref.grid
     return (shape == rshape and np.allclose(gt, rgt, rtol=0, atol=1e-9 * max(1.0, abs(rgt[1])))
             and same_crs(wkt, rwkt))
-
-
-def dry_block_groups(raster: _Raster, nbx: int, nby: int, is_dry, buf: np.ndarray) -> np.ndarray:
-    """(nby, nbx) bool: blocks known to hold only dry cells, found without decoding them.
-
-    Blocks with identical compressed bytes (groups of two or more) decode to identical values; one of
-    each group is decoded into ``buf`` and ``is_dry(values)`` says whether the whole group is dry. Blocks
-    whose place in the file GDAL does not report are never skipped."""
-    band = raster.band
-    offsets = np.zeros((nby, nbx), np.int64)
-    sizes = np.full((nby, nbx), -1, np.int64)
-    for j in range(nby):
-        for i in range(nbx):
-            off = band.GetMetadataItem(f"BLOCK_OFFSET_{i}_{j}", "TIFF")
-            size = band.GetMetadataItem(f"BLOCK_SIZE_{i}_{j}", "TIFF")
-            if off is not None and size is not None:
-                offsets[j, i], sizes[j, i] = int(off), int(size)
-    dry = np.zeros((nby, nbx), dtype=bool)
-    values, counts = np.unique(sizes[sizes >= 0], return_counts=True)
-    if not (counts >= 2).any():
-        return dry
-    with open(raster.path, "rb") as fh:
-        for size in values[counts >= 2].tolist():
-            groups: dict = {}
-            for j, i in zip(*np.nonzero(sizes == size)):
-                fh.seek(int(offsets[j, i]))
-                groups.setdefault(fh.read(size), []).append((int(j), int(i)))
-            for members in groups.values():
-                if len(members) < 2:
-                    continue
-                j, i = members[0]
-                band.ReadBlock(i, j, buf_obj=buf)
-                if is_dry(buf):
-                    for j, i in members:
-                        dry[j, i] = True
-    return dry
 
 
 def _velocity_keys(src: RunSource) -> list:
@@ -156,29 +116,10 @@ def _read(rasters: dict, src: RunSource, wet_depth_m: float, progress):
         return a.astype(np.float32, copy=False)
 
     def negative(d) -> bool:
-        """Any valid depth below NEGATIVE_DEPTH_M (nodata and -inf are not valid)."""
-        n = np.count_nonzero(d < NEGATIVE_DEPTH_M)
-        if n == 0:
-            return False
-        if dnd is not None and dnd < NEGATIVE_DEPTH_M:
-            n -= np.count_nonzero(d == dnd)
-        if n > 0:
-            n -= np.count_nonzero(d == -np.inf)
-        return n > 0
-
-    def is_dry(block) -> bool:
-        d = as_f32(block)
-        w = d >= wet
-        if w.any():
-            w &= np.isfinite(d)
-            if dnd is not None:
-                w &= d != dnd
-            if w.any():
-                return False
-        return not negative(d)
+        return any_negative(d, dnd)
 
     buf = np.empty((by, bx), dtype=ddtype)
-    dry = dry_block_groups(dep, nbx, nby, is_dry, buf)
+    dry = dry_block_groups(dep.path, dep.band, nbx, nby, dry_test(dnd, wet), buf)
 
     vdtype = {k: _DTYPES[r.band.DataType] for k, r in vel.items()}
     vnd = {k: r.band.GetNoDataValue() for k, r in vel.items()}

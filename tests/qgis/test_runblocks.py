@@ -65,6 +65,20 @@ def _same(a, b):
     assert a.crs_wkt == b.crs_wkt and a.name == b.name
 
 
+def _naive(paths, keys, wet=0.05):
+    """The wet cells from whole-array reads (numpy only): the reference for both readers."""
+    arrays = {}
+    for k in ("depth",) + tuple(keys):
+        ds = gdal.Open(paths[k])
+        band = ds.GetRasterBand(1)
+        arrays[k] = band.ReadAsArray().astype(np.float32)
+        del band, ds
+    d = arrays["depth"]
+    index = np.flatnonzero(np.isfinite(d) & (d != ND) & (d >= wet))
+    spd = arrays["speed"] if "speed" in keys else np.hypot(arrays["u"], arrays["v"]).astype(np.float32)
+    return index, d.ravel()[index], spd.ravel()[index]
+
+
 @pytest.mark.parametrize("keys", [("speed",), ("u", "v"), ("speed", "u", "v")])
 @pytest.mark.parametrize("shape", [(300, 520), (256, 256), (65, 700)])  # edge blocks padded or not
 def test_equals_read_run(tmp_path, keys, shape):
@@ -73,6 +87,10 @@ def test_equals_read_run(tmp_path, keys, shape):
     want = runs.read_run(src, 0.05)
     got = runblocks.read_raster_blocks(src, 0.05)
     _same(want, got)
+    index, depth, speed = _naive(paths, keys)
+    np.testing.assert_array_equal(want.support.index, index)
+    np.testing.assert_array_equal(want.depth, depth)
+    np.testing.assert_array_equal(want.speed, speed)
 
 
 def test_dry_blocks_are_skipped_not_decoded(tmp_path, monkeypatch):

@@ -159,23 +159,6 @@ class QPlot(_Plot):
                 last = x + half
         c.text(self.x1, self.y0 - 15.0, "discharge (m³/s)", 7.5, "end", MUTED)
 
-    def axis_y_pct(self, ticks, label_lines=(), tick_labels: bool = True):
-        """The y axis: spine, ticks, optional tick labels and a label of one or more rotated lines."""
-        c = self.c
-        c.line(self.x0, self.y0, self.x0, self.y1, MUTED, 0.8)
-        width = 0.0
-        for t in ticks:
-            y = float(self.Y(t))
-            c.line(self.x0 - 3.5, y, self.x0, y, MUTED, 0.8)
-            if tick_labels:
-                s = tick_label(t, ticks[1] - ticks[0] if len(ticks) > 1 else None)
-                width = max(width, text_width(s, 8.0))
-                c.text(self.x0 - 5.5, y, s, 8.0, "end", MUTED, middle=True)
-        lines = [s for s in ([label_lines] if isinstance(label_lines, str) else label_lines) if s]
-        for k, s in enumerate(reversed(lines)):
-            x = self.x0 - 5.5 - width - 8.0 - 11.0 * k
-            c.text(x, (self.y0 + self.y1) / 2.0, s, 9.0, "middle", INK, rotate=-90)
-
 
 def _q_range(curves, regimes):
     qs = np.concatenate([curves.ladder(r) for r in regimes])
@@ -285,7 +268,7 @@ def target_panels(curves, results, targets, regimes, max_cols: int = 2, title: s
         ylabel = f"{'+'.join(tg.classes)} (% of {tg.unit})"
         if text_width(ylabel, 9.0) > panel_h:  # two lines: the class set, then the unit
             ylabel = ("+".join(tg.classes), f"(% of {tg.unit})")
-        pl.axis_y_pct(PCT_TICKS, ylabel)
+        pl.axis_y(PCT_TICKS, ylabel)
         c.text(box[0] - left + 8.0, box[1] - 30.0, tg.text, 9.5, "start", INK, weight="600")
         y_thr = float(pl.Y(tg.threshold_pct))
         c.line(pl.x0, y_thr, pl.x1, y_thr, INK, 0.9, dash="4.5,2.7")
@@ -339,7 +322,7 @@ def class_share_panels(curves, unit, regimes, title: str = "", max_cols: int = 4
         clip = pl.clip()
         pl.grid_y(PCT_TICKS)
         pl.axis_q(label=k >= len(names) - ncols)
-        pl.axis_y_pct(PCT_TICKS, "% of wet area" if k % ncols == 0 else ())
+        pl.axis_y(PCT_TICKS, "% of wet area" if k % ncols == 0 else ())
         c.text(pl.x0, pl.y0 - 6.0, name, 9.0, "start", INK, weight="600")
         for i, regime in enumerate(regimes):
             rc, qd, yd = grids[regime]
@@ -384,7 +367,7 @@ def composition_grid(curves, units, regimes, scheme, title: str = "") -> str:
                     c.path("M" + "L".join(pts) + "Z", fill=colours[j], clip=clip)
                 base = top_v
             pl.axis_q(label=r == nrows - 1, tick_labels=r == nrows - 1, grid=False)
-            pl.axis_y_pct(PCT_TICKS, (curves.units[u].key, "% of wet area") if col == 0 else (),
+            pl.axis_y(PCT_TICKS, (curves.units[u].key, "% of wet area") if col == 0 else (),
                           tick_labels=col == 0)
             if r == 0:
                 c.text(pl.x0, pl.y0 - 5.0, regime, 9.0, "start", INK, weight="600")
@@ -416,7 +399,7 @@ def wet_area_panels(curves, units, regimes, max_cols: int = 4, title: str = "") 
         clip = pl.clip()
         pl.grid_y(yt)
         pl.axis_q(label=k >= len(units) - ncols)
-        pl.axis_y_pct(yt, "wet area (ha)" if k % ncols == 0 else ())
+        pl.axis_y(yt, "wet area (ha)" if k % ncols == 0 else ())
         c.text(pl.x0, pl.y0 - 6.0, curves.units[u].key, 9.0, "start", INK, weight="600")
         for i, regime in enumerate(regimes):
             q = curves.regime(regime).q_mld

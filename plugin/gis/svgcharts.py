@@ -186,19 +186,23 @@ class _Plot:
         if label:
             c.text((self.x0 + self.x1) / 2.0, self.y1 + 26.0, label, 9.0, "middle", INK)
 
-    def axis_y(self, ticks, label: str):
+    def axis_y(self, ticks, label="", tick_labels: bool = True):
+        """The y axis: spine, ticks, optional tick labels, and a rotated label of one line (a string)
+        or several (a sequence, the first outermost)."""
         c = self.c
         c.line(self.x0, self.y0, self.x0, self.y1, MUTED, 0.8)
         width = 0.0
         for t in ticks:
             y = float(self.Y(t))
             c.line(self.x0 - 3.5, y, self.x0, y, MUTED, 0.8)
-            s = tick_label(t, _step(ticks))
-            width = max(width, text_width(s, 8.0))
-            c.text(self.x0 - 5.5, y, s, 8.0, "end", MUTED, middle=True)
-        if label:
-            x = self.x0 - 5.5 - width - 8.0
-            c.text(x, (self.y0 + self.y1) / 2.0, label, 9.0, "middle", INK, rotate=-90)
+            if tick_labels:
+                s = tick_label(t, _step(ticks))
+                width = max(width, text_width(s, 8.0))
+                c.text(self.x0 - 5.5, y, s, 8.0, "end", MUTED, middle=True)
+        lines = [s for s in ([label] if isinstance(label, str) else label) if s]
+        for k, s in enumerate(reversed(lines)):
+            x = self.x0 - 5.5 - width - 8.0 - 11.0 * k
+            c.text(x, (self.y0 + self.y1) / 2.0, s, 9.0, "middle", INK, rotate=-90)
 
     def zones(self, edges_m, names):
         """Dotted lines at inner zone boundaries; zone names centred above the plot."""

@@ -71,7 +71,8 @@ def run(demo):
             out = _outputs(demo, name)
             res = demo.run("maphabitat", {
                 "DEPTH": str(demo.sample / row["depth"]), "SPEED": str(demo.sample / row["speed"]),
-                "CENTRELINE": cl, "CENTRELINE_DIRECTION": 1, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "", **out})
+                "CENTRELINE": cl, "CENTRELINE_DIRECTION": 1, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "",
+                "RUN_NAME": f"{regime}, {q:,.0f} ML/d", **out})
             demo.log(f"  {regime} {q:g} ML/d: wet area {res['WET_AREA_M2'] / 1e6:.2f} km2; "
                      f"{_zone_summary(res['ZONE_STATS'])}")
             items.append((f"{regime}, {q:g} ML/d: report", res["REPORT"]))
@@ -94,7 +95,8 @@ def run(demo):
             res = demo.run("maphabitat", {
                 "MESH": layer, "MESH_DEPTH_GROUP": mrow.get("depth_group") or "",
                 "MESH_VELOCITY_GROUP": mrow.get("velocity_group") or "", "CENTRELINE": cl,
-                "CENTRELINE_DIRECTION": 1, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "", **out})
+                "CENTRELINE_DIRECTION": 1, "SEGMENT_LENGTH": 1000.0, "ZONE_BREAKS": "",
+                "RUN_NAME": f"weir (mesh), {q:,.0f} ML/d", **out})
             demo.log(f"  weir mesh {q:g} ML/d: wet area {res['WET_AREA_M2'] / 1e6:.2f} km2; "
                      f"{_zone_summary(res['ZONE_STATS'])}")
             items.append((f"weir mesh, {q:g} ML/d: report", res["REPORT"]))

@@ -12,6 +12,7 @@ from qgis.core import (
     QgsProcessingParameterFileDestination,
     QgsProcessingParameterNumber,
     QgsProcessingParameterRasterDestination,
+    QgsProcessingParameterString,
     QgsWkbTypes,
 )
 
@@ -23,6 +24,7 @@ from ..gis.habitatreport import build_report
 from .base import ChannelHabitatAlgorithm
 
 MIN_PATCH_AREA = "MIN_PATCH_AREA"
+RUN_NAME = "RUN_NAME"
 
 
 class MapHabitat(ChannelHabitatAlgorithm):
@@ -59,6 +61,8 @@ matching row wins.</li>
 <li><b>MIN_PATCH_AREA</b> (m&sup2;, default 0 = keep all): in PATCHES, patches smaller than this merge into
 their largest neighbour (rasters: GDAL sieve, 4-connected) or into the class they share the longest boundary
 with (meshes). Statistics always use the unsieved classes.</li>
+<li><b>RUN_NAME</b> (optional, e.g. <code>weir pool, 3000 ML/d</code>): names the run in the <i>run</i> column
+of the statistics and in the report's title; empty: the depth file's name (or the mesh layer's).</li>
 </ul>
 <h3>Outputs</h3>
 <ul>
@@ -100,6 +104,9 @@ by coverage union. The CRS must be projected, in metres.</p>
         self.addParameter(QgsProcessingParameterNumber(
             MIN_PATCH_AREA, "Minimum patch area in PATCHES (m2; 0 = keep every patch)",
             QgsProcessingParameterNumber.Type.Double, 0.0, minValue=0.0))
+        self.addParameter(QgsProcessingParameterString(
+            RUN_NAME, "Name of the run (statistics' run column and report title; empty: the depth file's name)",
+            "", optional=True))
         self.addParameter(QgsProcessingParameterRasterDestination(
             "CLASSES", "Habitat classes (raster runs)", optional=True, createByDefault=True))
         self.addParameter(QgsProcessingParameterFeatureSink(
@@ -117,7 +124,8 @@ by coverage union. The CRS must be projected, in metres.</p>
 
     def compute(self, parameters, context, feedback):
         # --- read: the rasters in the background while the reach and the scheme are read -----------
-        run = runprefetch.start_run_parameters(self, parameters, context, feedback,
+        run_name = (self.parameterAsString(parameters, RUN_NAME, context) or "").strip()
+        run = runprefetch.start_run_parameters(self, parameters, context, feedback, label=run_name,
                                                progress=self.progress(feedback, 0.0, 0.25))
         if not run.crs_wkt:
             run.result()  # says that the run has no CRS

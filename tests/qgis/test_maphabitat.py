@@ -188,9 +188,16 @@ def test_uv_rasters_give_the_same_statistics(run_alg, raster_run, tmp_path_facto
     t = tmp_path_factory.mktemp("uv")
     r = hc.write_rasters(t, uv=True)
     res2 = run_alg("maphabitat", {**params, "DEPTH": r["depth"], "SPEED": None, "VELOCITY_U": r["u"],
-                                  "VELOCITY_V": r["v"], "CLASSES": str(t / "c.tif"), **outputs(t)})
+                                  "VELOCITY_V": r["v"], "CLASSES": str(t / "c.tif"), **outputs(t),
+                                  "RUN_NAME": " pool & raised, 3 000 ML/d "})
     _, a = table(res["SEGMENT_STATS"])
     _, b = table(res2["SEGMENT_STATS"])
+    # the run is named by RUN_NAME (trimmed) where given, else by the depth file's name
+    assert {row["run"] for row in a} == {"depth"}
+    assert {row["run"] for row in b} == {"pool & raised, 3 000 ML/d"}
+    _, zb = table(res2["ZONE_STATS"])
+    assert {row["run"] for row in zb} == {"pool & raised, 3 000 ML/d"}
+    assert "pool &amp; raised, 3 000 ML/d" in Path(res2["REPORT"]).read_text(encoding="utf-8")
     for ra, rb in zip(a, b):
         assert rb["v_p50_ms"] == pytest.approx(ra["v_p50_ms"], abs=2e-7)  # hypot(0.8 s, 0.6 s) = s
         assert rb["area_fast_m2"] == pytest.approx(ra["area_fast_m2"], abs=4.0 * 2)

@@ -188,6 +188,7 @@ th,td{padding:.25rem .55rem;border-bottom:1px solid var(--rule);white-space:nowr
 thead th{position:sticky;top:0;background:#eef1f4;text-align:left;vertical-align:bottom;z-index:1}
 th .unit{display:block;font-weight:normal;color:var(--muted);font-size:.75rem}
 td.num{text-align:right;font-variant-numeric:tabular-nums}
+td:not(.num){white-space:normal;max-width:24rem}
 tbody tr:nth-child(even){background:var(--band)}
 table.summary{width:auto;min-width:0}
 table.summary th{text-align:left;font-weight:600;color:var(--muted);background:none;position:static}

@@ -203,7 +203,8 @@ def build_report(res, inputs: list, title_suffix: str = "") -> Report:
     rep.figure(criteria_timeline(res), caption="Spells through time, per criterion and option.")
     rep.section("Class shares through time",
                 "Share of each class in the unit's wet area on each day, interpolated between the runs. "
-                "Hatched grey: days outside the discharge ladder (not evaluated).")
+                "Hatched grey: days outside the discharge ladder (not evaluated). Each class is interpolated on its "
+                "own, so between runs the shares may add up to slightly more or less than 100 %.")
     for u in res.units:
         rep.figure(class_shares(res, u), caption=f"Class shares through time, {u}", fmt="png")
     rep.section("Spells", "Every spell meeting a target, and every bloom-risk spell (censored spells shorter "

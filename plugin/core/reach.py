@@ -523,6 +523,9 @@ def check_simple(x, y, crs_wkt: str = "") -> None:
     import shapely
 
     pts = np.column_stack([x, y])
+    # one GEOS call for the usual, simple line; the segment-by-segment search below only to say where
+    if len(pts) >= 2 and not np.array_equal(pts[0], pts[-1]) and shapely.is_simple(shapely.linestrings(pts)):
+        return
     segs = shapely.linestrings(np.stack([pts[:-1], pts[1:]], axis=1))
     tree = shapely.STRtree(segs)
     i, j = tree.query(segs, predicate="intersects")

@@ -144,11 +144,23 @@ def test_branching_parts_are_refused():
     ([(np.array([5.0, 5.0, 5.0]), np.array([1.0, 1.0, 1.0]))], "zero length"),
     ([(np.array([0.0, 100.0, 100.0, 50.0, 50.0]), np.array([0.0, 0.0, 50.0, 50.0, -20.0]))], "crosses"),
     ([(np.array([0.0, 100.0, 0.0]), np.array([0.0, 0.0, 0.0]))], "crosses"),
+    # a vertex touching another segment, a partial fold-back, a closed loop
+    ([(np.array([0.0, 100.0, 100.0, 50.0]), np.array([0.0, 0.0, 50.0, 0.0]))], "crosses or touches"),
+    ([(np.array([0.0, 100.0, 60.0]), np.array([0.0, 0.0, 0.0]))], "crosses or touches"),
+    ([(np.array([0.0, 100.0, 100.0, 0.0, 0.0]), np.array([0.0, 0.0, 50.0, 50.0, 0.0]))], "crosses or touches"),
 ])
 def test_bad_centrelines(parts, match):
     with pytest.raises(ChannelHabitatError, match=match) as err:
         build_axis(parts, UTM)
     assert err.value.parameter == "CENTRELINE"
+
+
+def test_simple_lines_pass_the_check():
+    from plugin.core.reach import check_simple
+
+    t = np.linspace(0.0, 6.0 * np.pi, 4000)  # a tight meander that never touches itself
+    check_simple(t * 100.0, 140.0 * np.sin(t))
+    check_simple(np.array([0.0, 100.0, 100.0, 0.0]), np.array([0.0, 0.0, 50.0, 50.0]))  # a U, ends apart
 
 
 def test_crossing_is_located():

@@ -298,19 +298,26 @@ def target_panels(curves, results, targets, regimes, max_cols: int = 2, title: s
     return c.svg()
 
 
+def _panel_page(n_panels: int, max_cols: int, title: str, default_title: str, regimes, left: float,
+                panel_h: float, wgap: float, hgap: float = 52.0):
+    """A canvas of small multiples under a title and the regime legend: (canvas, panel boxes, columns)."""
+    nrows, ncols = _grid(n_panels, max_cols)
+    c = Canvas(WIDTH_PT, 100.0, title or default_title)
+    y = _title(c, title) + 7.0
+    y = _regime_legend(c, list(regimes), left, y, WIDTH_PT - 6.0)
+    top = y + 14.0
+    boxes = _boxes(nrows, ncols, left, top, panel_h, wgap, hgap)
+    c.height = top + nrows * panel_h + (nrows - 1) * hgap + 34.0
+    return c, boxes, ncols
+
+
 def class_share_panels(curves, unit, regimes, title: str = "", max_cols: int = 4) -> str:
     """One panel per class: % of the unit's wet area against discharge, one line per regime (the PCHIP
     interpolant on ln q that targets use), markers at the runs; the regime legend across the top."""
     u = curves.unit_index(unit)
     names = curves.class_names
-    nrows, ncols = _grid(len(names), max_cols)
-    c = Canvas(WIDTH_PT, 100.0, title or f"Class shares against discharge: {curves.units[u].key}")
-    y = _title(c, title) + 7.0
-    y = _regime_legend(c, list(regimes), 50.0, y, WIDTH_PT - 6.0)
-    top = y + 14.0
-    panel_h, hgap = 120.0, 52.0
-    boxes = _boxes(nrows, ncols, 50.0, top, panel_h, 32.0, hgap)
-    c.height = top + nrows * panel_h + (nrows - 1) * hgap + 34.0
+    c, boxes, ncols = _panel_page(len(names), max_cols, title, f"Class shares against discharge: {curves.units[u].key}",
+                           regimes, 50.0, 120.0, 32.0)
     qmin, qmax = _q_range(curves, regimes)
     grids = {}
     for regime in regimes:
@@ -377,14 +384,7 @@ def composition_grid(curves, units, regimes, scheme, title: str = "") -> str:
 def wet_area_panels(curves, units, regimes, max_cols: int = 4, title: str = "") -> str:
     """Wet area (ha) against discharge: one panel per unit (its own scale from 0), one line per regime,
     straight between the runs."""
-    nrows, ncols = _grid(len(units), max_cols)
-    c = Canvas(WIDTH_PT, 100.0, title or "Wet area against discharge")
-    y = _title(c, title) + 7.0
-    y = _regime_legend(c, list(regimes), 54.0, y, WIDTH_PT - 6.0)
-    top = y + 14.0
-    panel_h, hgap = 115.0, 52.0
-    boxes = _boxes(nrows, ncols, 54.0, top, panel_h, 44.0, hgap)
-    c.height = top + nrows * panel_h + (nrows - 1) * hgap + 34.0
+    c, boxes, ncols = _panel_page(len(units), max_cols, title, "Wet area against discharge", regimes, 54.0, 115.0, 44.0)
     qmin, qmax = _q_range(curves, regimes)
     for k, unit in enumerate(units):
         u = curves.unit_index(unit)

@@ -444,10 +444,6 @@ def test_axis_against_the_flow_is_refused():
 
 
 def test_axis_with_chainage_growing_upstream_gives_the_same_drift():
-    import inspect
-
-    if "origin" not in inspect.signature(ReachAxis).parameters:
-        pytest.skip("ReachAxis has no origin parameter yet")
     fld = grid_field(200, 12, 2.0, lambda x, y: 0.02 + 0.001 * x, lambda x, y: 0 * x,
                      wet_fn=lambda x, y: np.abs(y) < 10)
     down = straight_reach(400.0, zones=([0.0, 150.0, 400.0], ["upper", "lower"]))

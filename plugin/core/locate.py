@@ -124,6 +124,19 @@ class _Tables:
         return self
 
 
+def _near_pairs(x, y, tree, radius: float, block: int = 20000):
+    """(b0, b1, i, j, distance) for every point i of (x, y) within ``radius`` of point j of ``tree``,
+    in blocks of points [b0, b1) (bounded memory); i is the index into x, y."""
+    n = len(x)
+    for b0 in range(0, n, block):
+        b1 = min(b0 + block, n)
+        pairs = cKDTree(np.column_stack([x[b0:b1], y[b0:b1]])).sparse_distance_matrix(
+            tree, radius, output_type="ndarray")
+        if len(pairs) == 0:
+            continue
+        yield b0, b1, pairs["i"].astype(np.int64) + b0, pairs["j"].astype(np.int64), pairs["v"]
+
+
 # ------------------------------------------------------------------------------------------------
 # geometry kernels (vectorised over pairs)
 # ------------------------------------------------------------------------------------------------
@@ -442,20 +455,12 @@ class PolylineIndex:
         rcx, rcy, rlo, rhi, rr = self._runs(h)
         tree_r = cKDTree(np.column_stack([rcx, rcy]))
         radius = 2.0 * cap + rr + 0.5 * float(plen.max())
-        block = 20000
-        for b0 in range(0, n_p, block):
-            b1 = min(b0 + block, n_p)
-            tree_m = cKDTree(np.column_stack([mx[b0:b1], my[b0:b1]]))
-            pairs = tree_m.sparse_distance_matrix(tree_r, radius, output_type="ndarray")
-            if len(pairs) == 0:
-                continue
-            p = pairs["i"].astype(np.int64) + b0
-            r = pairs["j"].astype(np.int64)
+        for b0, b1, p, r, dist in _near_pairs(mx, my, tree_r, radius):
             sp = seg[p]
             # the run's disc in the piece frame: lower bound dmin^2 / (2 ymax) of what it can do
             dx, dy = rcx[r] - mx[p], rcy[r] - my[p]
             ycen = -dx * self.uy[sp] + dy * self.ux[sp]
-            dmin = np.maximum(pairs["v"] - rr - 0.5 * plen[p], 0.0)
+            dmin = np.maximum(dist - rr - 0.5 * plen[p], 0.0)
             outside = (rlo[r] < wlo[sp]) | (rhi[r] > whi[sp])  # runs wholly in the window never count
             for side, sgn in ((0, 1.0), (1, -1.0)):
                 ymax = sgn * ycen + rr
@@ -519,16 +524,7 @@ class PolylineIndex:
         A = self.tolerance ** 2 - 1.0
         radius = (1.0 + self.tolerance) * cap + step
         tree_q = cKDTree(np.column_stack([qx, qy]))
-        block = 20000
-        for b0 in range(0, n_s, block):
-            b1 = min(b0 + block, n_s)
-            tree_f = cKDTree(np.column_stack([fx[b0:b1], fy[b0:b1]]))
-            pairs = tree_f.sparse_distance_matrix(tree_q, radius, output_type="ndarray")
-            if len(pairs) == 0:
-                continue
-            p = pairs["i"].astype(np.int64) + b0
-            q = pairs["j"].astype(np.int64)
-            dist = pairs["v"]
+        for b0, b1, p, q, dist in _near_pairs(fx, fy, tree_q, radius):
             dc = np.abs(q_along[q] - f_along[p])
             keep = dc * (1.0 + self.tolerance) > self.jump * dist  # else d* >= dc / jump
             p, q, dist, dc = p[keep], q[keep], dist[keep], dc[keep]

@@ -29,7 +29,6 @@ from ..gis.driftreport import build_report
 from ..gis.runs import same_crs
 from .base import ChannelHabitatAlgorithm
 
-UNITS = ("ML/d", "m3/s")
 BANK_OPTIONS = (("slide", "Slide along the bank (keeps drifting; contacts counted)"),
                 ("strand", "Strand: stop at the first contact with a bank"))
 
@@ -111,13 +110,7 @@ docs/algorithms/driftresidence.md.</p>
 
     def define(self, config):
         runinput.add_run_parameters(self)
-        self.addParameter(QgsProcessingParameterString("REGIME", "Regime of the single run [empty: its file name]",
-                                                       optional=True))
-        self.addParameter(QgsProcessingParameterNumber(
-            "DISCHARGE", "Discharge of the single run [empty: not stated]", QgsProcessingParameterNumber.Type.Double,
-            optional=True, minValue=0.0))
-        self.addParameter(QgsProcessingParameterEnum("DISCHARGE_UNIT", "Discharge unit", list(UNITS),
-                                                     defaultValue=0))
+        runinput.add_run_label_parameters(self)
         self.addParameter(QgsProcessingParameterFile(
             "SCENARIOS", "Scenario table (CSV) [instead of, or besides, the single run]",
             QgsProcessingParameterFile.File, fileFilter="CSV files (*.csv *.txt)", optional=True))
@@ -215,7 +208,7 @@ docs/algorithms/driftresidence.md.</p>
             bank=BANK_OPTIONS[self.parameterAsEnum(parameters, "BANK_CONTACT", context)][0])
 
     def compute(self, parameters, context, feedback):
-        unit = UNITS[self.parameterAsEnum(parameters, "DISCHARGE_UNIT", context)]
+        regime_given, q, unit = runinput.read_run_label(self, parameters, context)
         scheme = schemeinput.read_scheme_parameters(self, parameters, context, feedback)
         options = self._options(parameters, context)
         wet = self.parameterAsDouble(parameters, runinput.WET_DEPTH, context)
@@ -255,9 +248,7 @@ docs/algorithms/driftresidence.md.</p>
         runs = []
         n_runs = int(single) + len(rows)
         if single:
-            q_raw = parameters.get("DISCHARGE")
-            q = None if q_raw in (None, "") else self.parameterAsDouble(parameters, "DISCHARGE", context)
-            regime = self.parameterAsString(parameters, "REGIME", context).strip() or src.label
+            regime = regime_given or src.label
             q_mld = float(to_mld(q, unit)) if q else math.nan
             label = regime + (f" {q:g} {unit}" if q else "")
             feedback.pushInfo(f"Run 1 of {n_runs}: {label} ({fld.n} wet elements)")

@@ -33,7 +33,7 @@ from shapely import Polygon
 
 from ..core import panels
 from ..core.errors import Cancelled, ChannelHabitatError
-from ..gis import layouts, outputs
+from ..gis import layouts, outputs, runinput
 from ..gis.reachinput import CENTRELINE, add_reach_parameters, read_reach_parameters
 from ..gis.report import plugin_version
 from ..gis.schemeinput import add_scheme_parameters, read_scheme_parameters
@@ -41,7 +41,6 @@ from .base import CAUTION, ChannelHabitatAlgorithm
 
 MODES = ("zones", "atlas")
 PAPERS = ("A4", "A3")
-UNITS = ("ML/d", "m3/s")
 
 
 class MapPanels(ChannelHabitatAlgorithm):
@@ -138,12 +137,7 @@ banks, axis and km posts use neutral colours that do not compete with the classe
                                                      defaultValue=0))
         self.addParameter(QgsProcessingParameterString("TITLE", "Title [empty: from scheme, regime, discharge]",
                                                        optional=True))
-        self.addParameter(QgsProcessingParameterString("REGIME", "Regime (caption)", optional=True))
-        self.addParameter(QgsProcessingParameterNumber(
-            "DISCHARGE", "Discharge (caption) [empty: not stated]", QgsProcessingParameterNumber.Type.Double,
-            optional=True, minValue=0.0))
-        self.addParameter(QgsProcessingParameterEnum("DISCHARGE_UNIT", "Discharge unit", list(UNITS),
-                                                     defaultValue=0))
+        runinput.add_run_label_parameters(self, "Regime (caption)", "Discharge (caption) [empty: not stated]")
         self.addParameter(QgsProcessingParameterString("DATE", "Date (caption) [empty: today]", optional=True))
         self.addParameter(QgsProcessingParameterString(
             "DATA_NOTE", "Data note [empty: composed from the inputs]", optional=True, multiLine=True))
@@ -193,10 +187,7 @@ banks, axis and km posts use neutral colours that do not compete with the classe
                           + ", 1:".join(f"{s:g}" for s in page_cols["scale"]))
 
         # caption and texts
-        regime = self.parameterAsString(parameters, "REGIME", context).strip()
-        unit = UNITS[self.parameterAsEnum(parameters, "DISCHARGE_UNIT", context)]
-        q_raw = parameters.get("DISCHARGE")
-        q = None if q_raw in (None, "") else self.parameterAsDouble(parameters, "DISCHARGE", context)
+        regime, q, unit = runinput.read_run_label(self, parameters, context)
         q_text = panels.discharge_text(q, unit, "DISCHARGE") if q else "not stated"
         date = self.parameterAsString(parameters, "DATE", context).strip() or _dt.date.today().isoformat()
         title = self.parameterAsString(parameters, "TITLE", context).strip() or _title(

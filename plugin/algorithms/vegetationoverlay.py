@@ -9,7 +9,6 @@ from qgis.core import (
     QgsCoordinateReferenceSystem,
     QgsProcessing,
     QgsProcessingParameterDefinition,
-    QgsProcessingParameterEnum,
     QgsProcessingParameterFeatureSink,
     QgsProcessingParameterFeatureSource,
     QgsProcessingParameterField,
@@ -28,7 +27,7 @@ from ..gis.runs import same_crs
 from ..gis.vegetationreport import build_report
 from .base import ChannelHabitatAlgorithm
 
-UNITS = ("ML/d", "m3/s")
+UNITS = runinput.DISCHARGE_UNITS
 
 
 class VegetationOverlay(ChannelHabitatAlgorithm):
@@ -92,13 +91,7 @@ each change of class.</p>
             "ID_FIELD", "Stand id field (whole numbers) [empty: feature id]", "stand_id", "VEGETATION",
             QgsProcessingParameterField.DataType.Numeric, optional=True))
         runinput.add_run_parameters(self)
-        self.addParameter(QgsProcessingParameterString("REGIME", "Regime of the single run [empty: its file name]",
-                                                       optional=True))
-        self.addParameter(QgsProcessingParameterNumber(
-            "DISCHARGE", "Discharge of the single run [empty: not stated]", QgsProcessingParameterNumber.Type.Double,
-            optional=True, minValue=0.0))
-        self.addParameter(QgsProcessingParameterEnum("DISCHARGE_UNIT", "Discharge unit", list(UNITS),
-                                                     defaultValue=0))
+        runinput.add_run_label_parameters(self)
         scenarioinput.add_scenario_parameters(
             self, optional=True, label="Scenario table (CSV file or table layer) [instead of, or with, the single run]")
         self.addParameter(QgsProcessingParameterString(
@@ -128,10 +121,8 @@ each change of class.</p>
         if not any(parameters.get(k) not in (None, "") for k in ("DEPTH", "SPEED", "VELOCITY_U", "VELOCITY_V",
                                                                    "MESH")):
             return None
-        unit = UNITS[self.parameterAsEnum(parameters, "DISCHARGE_UNIT", context)]
-        q_raw = parameters.get("DISCHARGE")
-        q = None if q_raw in (None, "") else self.parameterAsDouble(parameters, "DISCHARGE", context)
-        return {"regime": self.parameterAsString(parameters, "REGIME", context).strip(),
+        regime, q, unit = runinput.read_run_label(self, parameters, context)
+        return {"regime": regime,
                 "q_mld": float(to_mld(q, unit)) if q else math.nan,
                 "q_m3s": float(to_m3s(q, unit)) if q else math.nan, "run": ""}
 

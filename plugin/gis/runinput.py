@@ -22,6 +22,7 @@ from qgis.core import (
     QgsMeshDatasetIndex,
     QgsProcessingParameterCrs,
     QgsProcessingParameterDefinition,
+    QgsProcessingParameterEnum,
     QgsProcessingParameterMeshLayer,
     QgsProcessingParameterNumber,
     QgsProcessingParameterRasterLayer,
@@ -44,6 +45,27 @@ def _names(prefix: str) -> dict:
         "u_group": f"{prefix}MESH_U_GROUP", "v_group": f"{prefix}MESH_V_GROUP",
         "time_index": f"{prefix}MESH_TIME_INDEX", "mesh_crs": f"{prefix}MESH_CRS",
     }
+
+
+DISCHARGE_UNITS = ("ML/d", "m3/s")  # the DISCHARGE_UNIT choices, in this order
+
+
+def add_run_label_parameters(alg, regime: str = "Regime of the single run [empty: its file name]",
+                             discharge: str = "Discharge of the single run [empty: not stated]") -> None:
+    """REGIME, DISCHARGE and DISCHARGE_UNIT: what a single run is called in tables, reports and captions."""
+    alg.addParameter(QgsProcessingParameterString("REGIME", regime, optional=True))
+    alg.addParameter(QgsProcessingParameterNumber(
+        "DISCHARGE", discharge, QgsProcessingParameterNumber.Type.Double, optional=True, minValue=0.0))
+    alg.addParameter(QgsProcessingParameterEnum("DISCHARGE_UNIT", "Discharge unit", list(DISCHARGE_UNITS),
+                                                defaultValue=0))
+
+
+def read_run_label(alg, parameters, context) -> tuple:
+    """(regime text, stripped; discharge or None when not given; its unit) from add_run_label_parameters."""
+    unit = DISCHARGE_UNITS[alg.parameterAsEnum(parameters, "DISCHARGE_UNIT", context)]
+    q_raw = parameters.get("DISCHARGE")
+    q = None if q_raw in (None, "") else alg.parameterAsDouble(parameters, "DISCHARGE", context)
+    return alg.parameterAsString(parameters, "REGIME", context).strip(), q, unit
 
 
 def add_run_parameters(alg, prefix: str = "", label: str = "", need_vectors: bool = False,

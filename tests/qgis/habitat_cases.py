@@ -179,3 +179,21 @@ def write_ugrid(path, epsg: int | None = EPSG, fine=2.0, coarse=4.0, node_values
         else:
             var("spd", "speed", s)
     return str(path)
+
+
+def table(path, geometry=False):
+    """(field names, rows as dicts with NULL as None[, shapely geometries]) of a vector output."""
+    import shapely
+    from qgis.core import QgsVectorLayer
+
+    lyr = QgsVectorLayer(str(path), "t", "ogr")
+    assert lyr.isValid(), path
+    names = [f.name() for f in lyr.fields()]
+    rows, geoms = [], []
+    for f in lyr.getFeatures():
+        rows.append({k: (None if (v is None or (hasattr(v, "isNull") and v.isNull())) else v)
+                     for k, v in zip(names, f.attributes())})
+        if geometry:
+            g = f.geometry()
+            geoms.append(None if g.isNull() else shapely.from_wkb(bytes(g.asWkb())))
+    return (names, rows, geoms) if geometry else (names, rows)

@@ -22,6 +22,7 @@ from qgis.core import (
 )
 
 from tests.qgis import habitat_cases as hc
+from tests.qgis.habitat_cases import table
 
 SEG = 200.0
 ZONES = "0 upper, 500 middle, 900 lower"
@@ -33,19 +34,6 @@ KEYS = ["dry", "very_slow", "slow", "moderate", "fast"]
 # ------------------------------------------------------------------------------------------------
 # helpers
 # ------------------------------------------------------------------------------------------------
-
-def table(path, geometry=False):
-    lyr = QgsVectorLayer(str(path), "t", "ogr")
-    assert lyr.isValid(), path
-    names = [f.name() for f in lyr.fields()]
-    rows, geoms = [], []
-    for f in lyr.getFeatures():
-        rows.append({k: (None if (v is None or (hasattr(v, "isNull") and v.isNull())) else v)
-                     for k, v in zip(names, f.attributes())})
-        if geometry:
-            g = f.geometry()
-            geoms.append(None if g.isNull() else shapely.from_wkb(bytes(g.asWkb())))
-    return (names, rows, geoms) if geometry else (names, rows)
 
 
 def raster(path):

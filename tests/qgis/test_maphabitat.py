@@ -23,6 +23,7 @@ from qgis.core import (
 )
 
 from tests.qgis import habitat_cases as hc
+from tests.qgis.habitat_cases import table
 
 SEG = 200.0
 NAMES = ["very slow", "slow", "moderate", "fast"]
@@ -30,19 +31,6 @@ KEYS = ["very_slow", "slow", "moderate", "fast"]
 PCT = [0, 10, 25, 50, 75, 90, 100]
 LABS = ["min", "p10", "p25", "p50", "p75", "p90", "max"]
 
-
-def table(path, geometry=False):
-    lyr = QgsVectorLayer(str(path), "t", "ogr")
-    assert lyr.isValid(), path
-    names = [f.name() for f in lyr.fields()]
-    rows, geoms = [], []
-    for f in lyr.getFeatures():
-        rows.append({k: (None if (v is None or (hasattr(v, "isNull") and v.isNull())) else v)
-                     for k, v in zip(names, f.attributes())})
-        if geometry:
-            g = f.geometry()
-            geoms.append(None if g.isNull() else shapely.from_wkb(bytes(g.asWkb())))
-    return (names, rows, geoms) if geometry else (names, rows)
 
 
 def outputs(tmp_path, **extra):

@@ -176,7 +176,15 @@ def read_run_parameters(alg, parameters, context, feedback, prefix: str = "", la
         fld = read_mesh_layer(mesh_layer, src, wet)
     else:
         fld = read_run(src, wet, progress, require=False)
-    require_wet(fld, src.params["depth_group" if src.is_mesh or mesh_layer is not None else "depth"])
+    check_run(fld, src, feedback, need_vectors, is_mesh=src.is_mesh or mesh_layer is not None)
+    return fld, src
+
+
+def check_run(fld, src, feedback, need_vectors: bool = False, is_mesh: bool | None = None) -> None:
+    """After reading a run: refuse a dry run, a run without vectors where they are needed, or one
+    without a CRS (naming the parameter); pass the reader's notes to the log."""
+    is_mesh = src.is_mesh if is_mesh is None else is_mesh
+    require_wet(fld, src.params["depth_group" if is_mesh else "depth"])
     if need_vectors and (fld.u is None or fld.v is None):
         raise ChannelHabitatError("this algorithm needs velocity vectors: give u and v rasters, or a "
                                   "mesh vector group (or x/y groups)", src.params["u"])
@@ -185,7 +193,6 @@ def read_run_parameters(alg, parameters, context, feedback, prefix: str = "", la
     if not fld.crs_wkt:
         raise ChannelHabitatError("the run has no CRS; set one on the layer (or the mesh CRS parameter)",
                                   src.params["mesh_crs"] if src.is_mesh else src.params["depth"])
-    return fld, src
 
 
 def read_mesh_layer(layer, src: RunSource, wet_depth_m: float):

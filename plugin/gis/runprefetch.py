@@ -26,7 +26,7 @@ from concurrent.futures import Future, ThreadPoolExecutor
 import numpy as np
 from osgeo import gdal
 
-from ..core.errors import ChannelHabitatError, Progress
+from ..core.errors import Progress
 from ..core.field import DEFAULT_WET_DEPTH_M, GridSupport, require_wet
 from . import runinput
 from .runs import RasterRunReader, read_run
@@ -65,7 +65,7 @@ class RunRead:
     def result(self):
         fld = self.field_future.result()
         if not self._checked:
-            _check(fld, self.src, self._feedback, self._need_vectors)
+            runinput.check_run(fld, self.src, self._feedback, self._need_vectors)
             self._checked = True
         return fld, self.src
 
@@ -79,17 +79,6 @@ class RunRead:
         return location.take(pos)
 
 
-def _check(fld, src, feedback, need_vectors: bool) -> None:
-    """The checks and notes of ``runinput.read_run_parameters`` after reading (raster runs)."""
-    require_wet(fld, src.params["depth_group" if src.is_mesh else "depth"])
-    if need_vectors and (fld.u is None or fld.v is None):
-        raise ChannelHabitatError("this algorithm needs velocity vectors: give u and v rasters, or a "
-                                  "mesh vector group (or x/y groups)", src.params["u"])
-    for note in fld.notes:
-        feedback.pushInfo(note)
-    if not fld.crs_wkt:
-        raise ChannelHabitatError("the run has no CRS; set one on the layer (or the mesh CRS parameter)",
-                                  src.params["mesh_crs"] if src.is_mesh else src.params["depth"])
 
 
 def _header_crs(path: str) -> str:

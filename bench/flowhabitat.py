@@ -32,9 +32,7 @@ import argparse
 import csv
 import json
 import os
-import resource
 import statistics
-import subprocess
 import sys
 import tempfile
 import time
@@ -43,17 +41,12 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 OUT = ROOT / "bench" / "output"
+sys.path.insert(0, str(ROOT / "bench"))
+import common  # noqa: E402
+
 REACHES = {"5m": ROOT / "sample_gis" / "generated", "2m": OUT / "flowhabitat_2m"}
 TARGETS = "lower: moderate+fast >= 50%\nupper: fast >= 85%"
 ZONES = "0 upper, 12000 middle, 25000 lower"
-
-
-def peak_mb() -> float:
-    with open("/proc/self/status") as fh:
-        for line in fh:
-            if line.startswith("VmHWM:"):
-                return int(line.split()[1]) / 1024.0
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
 def ensure_reach(name: str) -> Path:
@@ -189,20 +182,14 @@ CHILDREN = {"floor": child_floor, "flowhabitat": child_flowhabitat, "no report":
 def child_main(kind: str, reach: str) -> None:
     with tempfile.TemporaryDirectory(prefix="bench-flow-", dir=OUT) as tmp:
         res = CHILDREN[kind](Path(reach), Path(tmp))
-    res["peak_rss_mb"] = peak_mb()
+    res["peak_rss_mb"] = common.peak_mb()
     print("RESULT " + json.dumps(res), flush=True)
     sys.stderr.flush()
     os._exit(0)  # skip QGIS teardown
 
 
 def run_child(kind: str, reach: Path) -> dict:
-    env = dict(os.environ, QT_QPA_PLATFORM="offscreen", PYTHONDONTWRITEBYTECODE="1")
-    out = subprocess.run([sys.executable, __file__, "--child", kind, "--reach", str(reach)], capture_output=True,
-                         text=True, env=env)
-    for line in out.stdout.splitlines():
-        if line.startswith("RESULT "):
-            return json.loads(line[7:])
-    raise RuntimeError(f"{kind} failed:\n{out.stdout[-3000:]}\n{out.stderr[-3000:]}")
+    return common.run_child(__file__, kind, reach)
 
 
 # ----------------------------------------------------------------------------------------------

@@ -48,7 +48,6 @@ import json
 import os
 import resource
 import statistics
-import subprocess
 import sys
 import tempfile
 import time
@@ -57,6 +56,9 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 OUT = ROOT / "bench" / "output"
+sys.path.insert(0, str(ROOT / "bench"))
+import common  # noqa: E402
+
 REACH = OUT / "maphabitat_reach"
 # --wide: the design's reference size (about 24 M cells, about 2 M wet) -- the channel widened beyond the
 # demo brief's 80-200 m and the dry margin of the grid enlarged
@@ -81,16 +83,6 @@ def cpu_s() -> float:
     a = resource.getrusage(resource.RUSAGE_SELF)
     b = resource.getrusage(resource.RUSAGE_CHILDREN)
     return a.ru_utime + a.ru_stime + b.ru_utime + b.ru_stime
-
-
-def peak_mb() -> float:
-    """Peak resident set size of this process image (VmHWM; ru_maxrss would carry the parent's
-    peak across fork + exec)."""
-    with open("/proc/self/status") as fh:
-        for line in fh:
-            if line.startswith("VmHWM:"):
-                return int(line.split()[1]) / 1024.0
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
 def ensure_reach(wide: bool = False) -> Path:
@@ -237,7 +229,7 @@ def child_maphabitat(p: dict, work: Path) -> dict:
                          feedback=QgsProcessingFeedback())
     dt = time.perf_counter() - t
     cpu = cpu_s() - c0
-    first_peak = peak_mb()
+    first_peak = common.peak_mb()
     # the same grid again in the same session (e.g. the next discharge of a scenario table): chainage cached
     c1 = cpu_s()
     t = time.perf_counter()
@@ -314,8 +306,8 @@ def child_main(kind: str, reach: str) -> None:
     else:
         with tempfile.TemporaryDirectory(prefix=f"bench-{kind}-", dir=OUT) as tmp:
             res = CHILDREN[kind](p, Path(tmp))
-    res["peak_rss_mb"] = res.pop("first_peak_mb", None) or peak_mb()
-    res["session_peak_rss_mb"] = peak_mb()
+    res["peak_rss_mb"] = res.pop("first_peak_mb", None) or common.peak_mb()
+    res["session_peak_rss_mb"] = common.peak_mb()
     res["gdal_cachemax"] = gdal_cfg
     print("RESULT " + json.dumps(res), flush=True)
     sys.stderr.flush()
@@ -323,13 +315,7 @@ def child_main(kind: str, reach: str) -> None:
 
 
 def run_child(kind: str, reach: Path) -> dict:
-    env = dict(os.environ, QT_QPA_PLATFORM="offscreen", PYTHONDONTWRITEBYTECODE="1")
-    out = subprocess.run([sys.executable, __file__, "--child", kind, "--reach", str(reach)], capture_output=True,
-                         text=True, env=env)
-    for line in out.stdout.splitlines():
-        if line.startswith("RESULT "):
-            return json.loads(line[7:])
-    raise RuntimeError(f"{kind} failed:\n{out.stdout[-3000:]}\n{out.stderr[-3000:]}")
+    return common.run_child(__file__, kind, reach)
 
 
 # ----------------------------------------------------------------------------------------------
